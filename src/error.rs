@@ -1,0 +1,105 @@
+//! The library's error type. A variant exists wherever a caller must act
+//! differently: bad input (show it to the person, with the field and value),
+//! not found, a file problem, or a storage failure.
+
+use std::path::PathBuf;
+
+/// Result alias used across the library.
+pub type Result<T, E = Error> = std::result::Result<T, E>;
+
+/// Everything that can go wrong in fieldcage's core.
+#[derive(Debug, thiserror::Error)]
+#[non_exhaustive]
+pub enum Error {
+    /// A value was refused before anything was written.
+    #[error("{table}.{field}: {reason} (value: {value:?})")]
+    InvalidValue {
+        /// Table (or definition section) the value belongs to.
+        table: String,
+        /// Field at fault.
+        field: String,
+        /// The value as given.
+        value: String,
+        /// Why it was refused.
+        reason: String,
+    },
+    /// A record the request refers to does not exist (or was deleted).
+    #[error("{table} {id} not found")]
+    NotFound {
+        /// Table searched.
+        table: String,
+        /// Id or label looked for.
+        id: String,
+    },
+    /// The experiment definition file is wrong; `location` names the entry.
+    #[error("{path}: {location}: {reason}")]
+    Definition {
+        /// The definition file.
+        path: PathBuf,
+        /// Where in the file (section, key or entry label).
+        location: String,
+        /// What is wrong.
+        reason: String,
+    },
+    /// A file being imported is wrong; nothing was imported.
+    #[error("{file}:{line}:{column}: {reason}")]
+    Import {
+        /// File name, relative to the import folder.
+        file: String,
+        /// 1-based line number (1 = the header).
+        line: u64,
+        /// Column name, or the 1-based column number when no name applies.
+        column: String,
+        /// What is wrong, with the value.
+        reason: String,
+    },
+    /// The database is not in the state this operation needs.
+    #[error("{0}")]
+    State(String),
+    /// A SQLite setting did not take effect; durability cannot be promised.
+    #[error("PRAGMA {name} is {actual:?}, expected {expected:?}")]
+    Pragma {
+        /// Pragma name.
+        name: &'static str,
+        /// What fieldcage needs.
+        expected: String,
+        /// What SQLite reported.
+        actual: String,
+    },
+    /// A file could not be read or written.
+    #[error("{path}: {source}")]
+    Io {
+        /// The file or folder.
+        path: PathBuf,
+        /// The underlying error.
+        source: std::io::Error,
+    },
+    /// SQLite reported an error.
+    #[error("database: {0}")]
+    Sqlite(#[from] rusqlite::Error),
+}
+
+impl Error {
+    /// Shorthand for [`Error::InvalidValue`].
+    pub fn invalid(
+        table: impl Into<String>,
+        field: impl Into<String>,
+        value: impl std::fmt::Display,
+        reason: impl Into<String>,
+    ) -> Self {
+        Error::InvalidValue {
+            table: table.into(),
+            field: field.into(),
+            value: value.to_string(),
+            reason: reason.into(),
+        }
+    }
+
+    /// Shorthand for [`Error::Io`].
+    pub fn io(path: impl Into<PathBuf>, source: std::io::Error) -> Self {
+        Error::Io {
+            path: path.into(),
+            source,
+        }
+    }
+}

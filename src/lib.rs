@@ -1,0 +1,20 @@
+//! fieldcage: an offline-first field recorder for enclosure (cage) experiments
+//! that test how predators shape plant communities.
+//!
+//! Data flows one way: input → validated command → [`store`] (with the change
+//! log) → export, checks and analysis read from the store. The table
+//! definitions in `schemas/tables/` ([`tables`]) are the single description of
+//! every stored and exported column.
+
+pub mod demo;
+pub mod error;
+pub mod export;
+pub mod import;
+pub mod model;
+pub mod record;
+pub mod setup;
+pub mod store;
+pub mod tables;
+
+pub use error::{Error, Result};
+pub use store::Store;

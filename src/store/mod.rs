@@ -1,0 +1,256 @@
+//! The local SQLite store: opening with durable settings, migrations, the one
+//! write path (with the change log) and typed reads.
+//!
+//! Durability: WAL with `synchronous=FULL` (NORMAL can lose acknowledged
+//! commits on power loss) and foreign keys on; every setting is read back and
+//! a setting that did not take is an error. Every write runs in an IMMEDIATE
+//! transaction through [`Store::write`], and every changed field is appended to
+//! `change_log` in that same transaction. A save is acknowledged only after
+//! the commit returns.
+
+mod hlc;
+pub mod migrations;
+mod rows;
+mod writer;
+
+use std::path::{Path, PathBuf};
+use std::sync::Arc;
+
+use rand::{RngCore, SeedableRng};
+use rand_chacha::ChaCha8Rng;
+use rusqlite::types::Value;
+use rusqlite::{Connection, OptionalExtension, TransactionBehavior, params};
+use uuid::Uuid;
+
+pub use hlc::Hlc;
+pub use rows::{Record, from_values, to_values};
+pub use writer::Writer;
+
+use crate::tables::{self, TableSchema};
+use crate::{Error, Result};
+
+/// Source of wall-clock time in milliseconds since the Unix epoch. Injectable
+/// so that tests can run devices with wrong clocks.
+pub type Clock = Arc<dyn Fn() -> i64 + Send + Sync>;
+
+/// The system clock.
+pub fn system_clock() -> Clock {
+    Arc::new(|| chrono::Utc::now().timestamp_millis())
+}
+
+/// How new row ids are made.
+#[derive(Debug)]
+enum IdMaker {
+    /// UUIDv7 from the system clock and the OS random source.
+    Clock,
+    /// Deterministic UUIDv7s (for the reproducible demo season): a
+    /// millisecond counter and seeded random bits.
+    Seeded { rng: Box<ChaCha8Rng>, millis: u64 },
+}
+
+/// An open fieldcage database.
+pub struct Store {
+    conn: Connection,
+    path: PathBuf,
+    device_id: String,
+    clock: Clock,
+    ids: IdMaker,
+}
+
+impl std::fmt::Debug for Store {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        f.debug_struct("Store")
+            .field("path", &self.path)
+            .field("device_id", &self.device_id)
+            .finish_non_exhaustive()
+    }
+}
+
+impl Store {
+    /// Open (or create) the database at `path`, apply durable settings and any
+    /// pending migrations, and make this device's identity on first open.
+    pub fn open(path: impl AsRef<Path>) -> Result<Store> {
+        Self::open_with_clock(path, system_clock())
+    }
+
+    /// [`Store::open`] with an injected clock.
+    pub fn open_with_clock(path: impl AsRef<Path>, clock: Clock) -> Result<Store> {
+        let path = path.as_ref().to_path_buf();
+        let mut conn = Connection::open(&path)?;
+        configure(&conn)?;
+        migrations::migrate(&mut conn)?;
+        let device_id = ensure_device(&mut conn, &clock)?;
+        Ok(Store {
+            conn,
+            path,
+            device_id,
+            clock,
+            ids: IdMaker::Clock,
+        })
+    }
+
+    /// Where the database lives.
+    pub fn path(&self) -> &Path {
+        &self.path
+    }
+
+    /// This database's device id.
+    pub fn device_id(&self) -> &str {
+        &self.device_id
+    }
+
+    /// The connection, for reads. All writes go through [`Store::write`].
+    pub fn conn(&self) -> &Connection {
+        &self.conn
+    }
+
+    /// Make ids deterministic from now on (the demo season uses this so that
+    /// its tables are the same on every build).
+    pub fn use_seeded_ids(&mut self, seed: u64, start_millis: u64) {
+        self.ids = IdMaker::Seeded {
+            rng: Box::new(ChaCha8Rng::seed_from_u64(seed)),
+            millis: start_millis,
+        };
+    }
+
+    /// Run `f` in one IMMEDIATE transaction. Every change made through the
+    /// [`Writer`] is logged; if `f` or the commit fails nothing is written.
+    pub fn write<T>(&mut self, f: impl FnOnce(&mut Writer<'_>) -> Result<T>) -> Result<T> {
+        let now = (self.clock)();
+        let tx = self
+            .conn
+            .transaction_with_behavior(TransactionBehavior::Immediate)?;
+        let (next_seq, last_hlc): (i64, i64) = tx.query_row(
+            "SELECT next_seq, hlc FROM local_device WHERE singleton = 1",
+            [],
+            |r| Ok((r.get(0)?, r.get(1)?)),
+        )?;
+        let hlc = Hlc(last_hlc).tick(now);
+        let mut writer = Writer::new(tx, &self.device_id, next_seq, hlc, &mut self.ids);
+        let out = f(&mut writer)?;
+        writer.commit()?;
+        Ok(out)
+    }
+
+    /// One live row of `R` by id.
+    pub fn get<R: Record>(&self, id: Uuid) -> Result<Option<R>> {
+        let schema = table_of::<R>();
+        let sql = format!(
+            "SELECT {} FROM {} WHERE id = ?1 AND deleted = 0",
+            schema.column_list(),
+            schema.name
+        );
+        let values = self
+            .conn
+            .prepare_cached(&sql)?
+            .query_row([id.to_string()], |r| read_values(r, schema.fields.len()))
+            .optional()?;
+        values.map(|v| from_values(schema, v)).transpose()
+    }
+
+    /// Every live row of `R`, ordered by id (creation order for UUIDv7).
+    pub fn list<R: Record>(&self) -> Result<Vec<R>> {
+        let schema = table_of::<R>();
+        self.rows(schema)?
+            .into_iter()
+            .map(|v| from_values(schema, v))
+            .collect()
+    }
+
+    /// Every live row of a table as stored values, ordered by id.
+    pub fn rows(&self, schema: &TableSchema) -> Result<Vec<Vec<Value>>> {
+        let sql = format!(
+            "SELECT {} FROM {} WHERE deleted = 0 ORDER BY id",
+            schema.column_list(),
+            schema.name
+        );
+        let mut stmt = self.conn.prepare_cached(&sql)?;
+        let rows = stmt.query_map([], |r| read_values(r, schema.fields.len()))?;
+        Ok(rows.collect::<rusqlite::Result<_>>()?)
+    }
+
+    /// Number of change-log entries.
+    pub fn change_count(&self) -> Result<i64> {
+        Ok(self
+            .conn
+            .query_row("SELECT count(*) FROM change_log", [], |r| r.get(0))?)
+    }
+}
+
+/// The schema of a record type's table.
+pub(crate) fn table_of<R: Record>() -> &'static TableSchema {
+    tables::get(R::TABLE).unwrap_or_else(|| panic!("no table schema for {}", R::TABLE))
+}
+
+pub(crate) fn read_values(row: &rusqlite::Row<'_>, n: usize) -> rusqlite::Result<Vec<Value>> {
+    (0..n).map(|i| row.get::<_, Value>(i)).collect()
+}
+
+/// Apply the durable settings and read each one back.
+fn configure(conn: &Connection) -> Result<()> {
+    conn.busy_timeout(std::time::Duration::from_secs(5))?;
+    let mode: String = conn.query_row("PRAGMA journal_mode = WAL", [], |r| r.get(0))?;
+    expect_pragma("journal_mode", "wal", &mode.to_ascii_lowercase())?;
+    conn.execute_batch("PRAGMA synchronous = FULL; PRAGMA foreign_keys = ON;")?;
+    let sync: i64 = conn.query_row("PRAGMA synchronous", [], |r| r.get(0))?;
+    expect_pragma(
+        "synchronous",
+        "2 (FULL)",
+        &format!("{sync}{}", if sync == 2 { " (FULL)" } else { "" }),
+    )?;
+    let fk: i64 = conn.query_row("PRAGMA foreign_keys", [], |r| r.get(0))?;
+    expect_pragma("foreign_keys", "1", &fk.to_string())?;
+    Ok(())
+}
+
+fn expect_pragma(name: &'static str, expected: &str, actual: &str) -> Result<()> {
+    if expected == actual {
+        Ok(())
+    } else {
+        Err(Error::Pragma {
+            name,
+            expected: expected.to_owned(),
+            actual: actual.to_owned(),
+        })
+    }
+}
+
+/// Make this database's device identity once; return its id.
+fn ensure_device(conn: &mut Connection, clock: &Clock) -> Result<String> {
+    let existing: Option<String> = conn
+        .query_row(
+            "SELECT device_id FROM local_device WHERE singleton = 1",
+            [],
+            |r| r.get(0),
+        )
+        .optional()?;
+    if let Some(id) = existing {
+        return Ok(id);
+    }
+    let id = Uuid::now_v7().to_string();
+    let name = format!("device-{}", &id[id.len() - 6..]);
+    let created = chrono::Utc::now().to_rfc3339_opts(chrono::SecondsFormat::Secs, true);
+    let start = Hlc::new((clock)(), 0).0;
+    let tx = conn.transaction_with_behavior(TransactionBehavior::Immediate)?;
+    tx.execute(
+        "INSERT INTO local_device (singleton, device_id, name, next_seq, hlc, created_at) \
+         VALUES (1, ?1, ?2, 1, ?3, ?4)",
+        params![id, name, start, created],
+    )?;
+    tx.commit()?;
+    Ok(id)
+}
+
+impl IdMaker {
+    fn next(&mut self) -> Uuid {
+        match self {
+            IdMaker::Clock => Uuid::now_v7(),
+            IdMaker::Seeded { rng, millis } => {
+                let mut random = [0u8; 10];
+                rng.fill_bytes(&mut random);
+                *millis += 1;
+                uuid::Builder::from_unix_timestamp_millis(*millis, &random).into_uuid()
+            }
+        }
+    }
+}

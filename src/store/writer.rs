@@ -1,0 +1,417 @@
+//! The one write path. Every insert, update and delete is validated against
+//! the table schema, checked for live references and unique keys, written,
+//! and appended to the change log in the same transaction.
+
+use rusqlite::types::Value;
+use rusqlite::{Transaction, params};
+use uuid::Uuid;
+
+use super::rows::{Record, to_values};
+use super::{Hlc, IdMaker, read_values, table_of};
+use crate::tables::{self, FieldType, TableSchema, display_value};
+use crate::{Error, Result};
+
+/// Writes inside one transaction; made by [`super::Store::write`].
+pub struct Writer<'a> {
+    tx: Transaction<'a>,
+    device_id: &'a str,
+    next_seq: i64,
+    hlc: Hlc,
+    ids: &'a mut IdMaker,
+}
+
+impl std::fmt::Debug for Writer<'_> {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        f.debug_struct("Writer")
+            .field("device_id", &self.device_id)
+            .field("next_seq", &self.next_seq)
+            .finish_non_exhaustive()
+    }
+}
+
+/// What the change log records for a change.
+#[derive(Clone, Copy)]
+enum Op {
+    Insert,
+    Update,
+    Delete,
+}
+
+impl Op {
+    fn as_str(self) -> &'static str {
+        match self {
+            Op::Insert => "insert",
+            Op::Update => "update",
+            Op::Delete => "delete",
+        }
+    }
+}
+
+impl<'a> Writer<'a> {
+    pub(super) fn new(
+        tx: Transaction<'a>,
+        device_id: &'a str,
+        next_seq: i64,
+        hlc: Hlc,
+        ids: &'a mut IdMaker,
+    ) -> Self {
+        Writer {
+            tx,
+            device_id,
+            next_seq,
+            hlc,
+            ids,
+        }
+    }
+
+    pub(super) fn commit(self) -> Result<()> {
+        self.tx.execute(
+            "UPDATE local_device SET next_seq = ?1, hlc = ?2 WHERE singleton = 1",
+            params![self.next_seq, self.hlc.0],
+        )?;
+        self.tx.commit()?;
+        Ok(())
+    }
+
+    /// A fresh row id (UUIDv7).
+    pub fn new_id(&mut self) -> Uuid {
+        self.ids.next()
+    }
+
+    /// The transaction, for reads that must see this transaction's writes.
+    pub fn conn(&self) -> &rusqlite::Connection {
+        &self.tx
+    }
+
+    /// Insert a typed record.
+    pub fn insert<R: Record>(&mut self, record: &R) -> Result<()> {
+        let schema = table_of::<R>();
+        let values = to_values(schema, record)?;
+        self.insert_values(schema, values)
+    }
+
+    /// Insert one row given as values in the schema's column order.
+    pub fn insert_values(&mut self, schema: &TableSchema, values: Vec<Value>) -> Result<()> {
+        if values.len() != schema.fields.len() {
+            return Err(Error::State(format!(
+                "{}: {} values for {} columns",
+                schema.name,
+                values.len(),
+                schema.fields.len()
+            )));
+        }
+        let values: Vec<Value> = schema
+            .fields
+            .iter()
+            .zip(values)
+            .map(|(f, v)| normalise(f.kind, v))
+            .collect();
+        for (f, v) in schema.fields.iter().zip(&values) {
+            f.check(v).map_err(|reason| {
+                Error::invalid(&schema.name, &f.name, display_value(v), reason)
+            })?;
+        }
+        let id = match &values[0] {
+            Value::Text(id) => id.clone(),
+            other => {
+                return Err(Error::invalid(
+                    &schema.name,
+                    "id",
+                    display_value(other),
+                    "is required",
+                ));
+            }
+        };
+        if Uuid::parse_str(&id).is_err() {
+            return Err(Error::invalid(&schema.name, "id", &id, "is not a UUID"));
+        }
+        let exists: bool = self
+            .tx
+            .prepare_cached(&format!(
+                "SELECT EXISTS (SELECT 1 FROM {} WHERE id = ?1)",
+                schema.name
+            ))?
+            .query_row([&id], |r| r.get(0))?;
+        if exists {
+            return Err(Error::invalid(
+                &schema.name,
+                "id",
+                &id,
+                "is already used by another row",
+            ));
+        }
+        self.check_references(schema, &values)?;
+        self.check_unique(schema, &values, None)?;
+        let placeholders = (1..=values.len())
+            .map(|i| format!("?{i}"))
+            .collect::<Vec<_>>()
+            .join(", ");
+        let sql = format!(
+            "INSERT INTO {} ({}) VALUES ({placeholders})",
+            schema.name,
+            schema.column_list()
+        );
+        self.tx
+            .prepare_cached(&sql)?
+            .execute(rusqlite::params_from_iter(values.iter()))?;
+        for (f, v) in schema.fields.iter().zip(&values) {
+            if !matches!(v, Value::Null) {
+                self.log(
+                    Op::Insert,
+                    &schema.name,
+                    &id,
+                    Some(&f.name),
+                    &Value::Null,
+                    v,
+                )?;
+            }
+        }
+        Ok(())
+    }
+
+    /// Store a typed record over its existing row, changing (and logging) only
+    /// the fields that differ.
+    pub fn update<R: Record>(&mut self, record: &R) -> Result<usize> {
+        let schema = table_of::<R>();
+        let values = to_values(schema, record)?;
+        let changes: Vec<(&str, Value)> = schema
+            .fields
+            .iter()
+            .zip(values)
+            .skip(1)
+            .map(|(f, v)| (f.name.as_str(), v))
+            .collect();
+        self.update_fields(schema, &record.id().to_string(), &changes)
+    }
+
+    /// Change some fields of a live row. Returns how many fields changed.
+    pub fn update_fields(
+        &mut self,
+        schema: &TableSchema,
+        id: &str,
+        changes: &[(&str, Value)],
+    ) -> Result<usize> {
+        let mut row = self.live_row(schema, id)?;
+        let old = row.clone();
+        for (name, value) in changes {
+            let i = schema.index(name).ok_or_else(|| {
+                Error::invalid(&schema.name, *name, display_value(value), "is not a column")
+            })?;
+            if i == 0 {
+                return Err(Error::invalid(
+                    &schema.name,
+                    "id",
+                    display_value(value),
+                    "cannot be changed",
+                ));
+            }
+            let value = normalise(schema.fields[i].kind, value.clone());
+            schema.fields[i].check(&value).map_err(|reason| {
+                Error::invalid(&schema.name, *name, display_value(&value), reason)
+            })?;
+            row[i] = value;
+        }
+        self.check_references(schema, &row)?;
+        self.check_unique(schema, &row, Some(id))?;
+        let mut changed = 0;
+        for (i, f) in schema.fields.iter().enumerate().skip(1) {
+            if same_value(&old[i], &row[i]) {
+                continue;
+            }
+            self.tx
+                .prepare_cached(&format!(
+                    "UPDATE {} SET {} = ?1 WHERE id = ?2",
+                    schema.name, f.name
+                ))?
+                .execute(params![row[i], id])?;
+            self.log(
+                Op::Update,
+                &schema.name,
+                id,
+                Some(&f.name),
+                &old[i],
+                &row[i],
+            )?;
+            changed += 1;
+        }
+        Ok(changed)
+    }
+
+    /// Delete a live row: it is tombstoned, never removed. Refused while live
+    /// rows still refer to it.
+    pub fn delete(&mut self, schema: &TableSchema, id: &str) -> Result<()> {
+        self.live_row(schema, id)?;
+        for other in tables::all() {
+            for fk in other
+                .foreign_keys
+                .iter()
+                .filter(|fk| fk.resource == schema.name)
+            {
+                let n: i64 = self
+                    .tx
+                    .prepare_cached(&format!(
+                        "SELECT count(*) FROM {} WHERE {} = ?1 AND deleted = 0",
+                        other.name, fk.field
+                    ))?
+                    .query_row([id], |r| r.get(0))?;
+                if n > 0 {
+                    return Err(Error::State(format!(
+                        "{} {id} cannot be deleted: {n} {} row(s) refer to it through {}; delete those first",
+                        schema.name, other.name, fk.field
+                    )));
+                }
+            }
+        }
+        self.tx
+            .prepare_cached(&format!(
+                "UPDATE {} SET deleted = 1 WHERE id = ?1",
+                schema.name
+            ))?
+            .execute([id])?;
+        self.log(
+            Op::Delete,
+            &schema.name,
+            id,
+            None,
+            &Value::Null,
+            &Value::Null,
+        )
+    }
+
+    /// The live row with this id, as values in schema order.
+    fn live_row(&self, schema: &TableSchema, id: &str) -> Result<Vec<Value>> {
+        use rusqlite::OptionalExtension;
+        self.tx
+            .prepare_cached(&format!(
+                "SELECT {} FROM {} WHERE id = ?1 AND deleted = 0",
+                schema.column_list(),
+                schema.name
+            ))?
+            .query_row([id], |r| read_values(r, schema.fields.len()))
+            .optional()?
+            .ok_or_else(|| Error::NotFound {
+                table: schema.name.clone(),
+                id: id.to_owned(),
+            })
+    }
+
+    fn check_references(&self, schema: &TableSchema, row: &[Value]) -> Result<()> {
+        for fk in &schema.foreign_keys {
+            let i = schema.index(&fk.field).unwrap_or_default();
+            let Value::Text(target) = &row[i] else {
+                continue;
+            };
+            let live: bool = self
+                .tx
+                .prepare_cached(&format!(
+                    "SELECT EXISTS (SELECT 1 FROM {} WHERE id = ?1 AND deleted = 0)",
+                    fk.resource
+                ))?
+                .query_row([target], |r| r.get(0))?;
+            if !live {
+                return Err(Error::invalid(
+                    &schema.name,
+                    &fk.field,
+                    target,
+                    format!("refers to no {} row", fk.resource),
+                ));
+            }
+        }
+        Ok(())
+    }
+
+    fn check_unique(
+        &self,
+        schema: &TableSchema,
+        row: &[Value],
+        except: Option<&str>,
+    ) -> Result<()> {
+        for key in schema.unique_keys.iter().filter(|k| **k != [0]) {
+            let cond = key
+                .iter()
+                .enumerate()
+                .map(|(n, i)| format!("{} IS ?{}", schema.fields[*i].name, n + 2))
+                .collect::<Vec<_>>()
+                .join(" AND ");
+            let sql = format!(
+                "SELECT EXISTS (SELECT 1 FROM {} WHERE deleted = 0 AND id IS NOT ?1 AND {cond})",
+                schema.name
+            );
+            let mut args: Vec<&Value> = Vec::with_capacity(key.len() + 1);
+            let except = except
+                .map(|e| Value::Text(e.to_owned()))
+                .unwrap_or(Value::Null);
+            args.push(&except);
+            args.extend(key.iter().map(|i| &row[*i]));
+            let taken: bool = self
+                .tx
+                .prepare_cached(&sql)?
+                .query_row(rusqlite::params_from_iter(args), |r| r.get(0))?;
+            if taken {
+                let names: Vec<&str> = key
+                    .iter()
+                    .map(|i| schema.fields[*i].name.as_str())
+                    .collect();
+                let shown: Vec<String> = key.iter().map(|i| display_value(&row[*i])).collect();
+                return Err(Error::invalid(
+                    &schema.name,
+                    names.join("+"),
+                    shown.join(", "),
+                    "is already used by another row",
+                ));
+            }
+        }
+        Ok(())
+    }
+
+    fn log(
+        &mut self,
+        op: Op,
+        table: &str,
+        row_id: &str,
+        field: Option<&str>,
+        old: &Value,
+        new: &Value,
+    ) -> Result<()> {
+        self.tx
+            .prepare_cached(
+                "INSERT INTO change_log (device_id, seq, hlc, table_name, row_id, op, field, old_value, new_value) \
+                 VALUES (?1, ?2, ?3, ?4, ?5, ?6, ?7, ?8, ?9)",
+            )?
+            .execute(params![
+                self.device_id,
+                self.next_seq,
+                self.hlc.0,
+                table,
+                row_id,
+                op.as_str(),
+                field,
+                old,
+                new
+            ])?;
+        self.next_seq += 1;
+        Ok(())
+    }
+}
+
+/// Canonical stored form: blank text is "not given" (NULL), so blank and
+/// missing never differ; a whole number given for a number column is a real.
+fn normalise(kind: FieldType, v: Value) -> Value {
+    match v {
+        Value::Text(t) if t.is_empty() => Value::Null,
+        Value::Integer(i) if kind == FieldType::Number => Value::Real(i as f64),
+        other => other,
+    }
+}
+
+/// Equality of stored values, with 1 and 1.0 equal (STRICT REAL columns
+/// return reals; callers may pass integers).
+fn same_value(a: &Value, b: &Value) -> bool {
+    match (a, b) {
+        (Value::Integer(x), Value::Real(y)) | (Value::Real(y), Value::Integer(x)) => {
+            (*x as f64) == *y
+        }
+        (Value::Real(x), Value::Real(y)) => x.to_bits() == y.to_bits(),
+        _ => a == b,
+    }
+}
