@@ -1,1 +1,190 @@
-//! todo
+//! The hand-off folder: one CSV per table and a `datapackage.json` that
+//! describes them, so that the tables load straight into R or pandas and can
+//! be checked by any Frictionless Data validator.
+//!
+//! - Tables follow [`tables::all`] (dependency order); a file is named
+//!   `<table>.csv`, its header is the schema's field names and its rows are the
+//!   live rows ordered by id.
+//! - CSV per RFC 4180: comma-separated, a value is quoted only when it holds a
+//!   comma, a quote, CR or LF, and embedded quotes are doubled. UTF-8 without a
+//!   byte-order mark; records end with LF, which each resource's `dialect`
+//!   states (Frictionless CSV Dialect, `lineTerminator`).
+//! - Cells are written by [`FieldSchema::format_cell`](crate::tables::FieldSchema::format_cell):
+//!   text is neutralised against formula injection (OWASP "CSV Injection"),
+//!   numbers are written exactly.
+//! - `datapackage.json` is a Frictionless Tabular Data Package whose table
+//!   schemas are the ones in `schemas/tables/`. It holds no timestamp, so the
+//!   same data always gives byte-identical files.
+//! - Each file is written to a temporary name in the folder, flushed to disk
+//!   and renamed, so a reader never sees half a file.
+
+use std::fs::{self, File};
+use std::io::Write;
+use std::path::Path;
+
+use serde_json::{Map, Value as Json, json};
+
+use crate::model::Experiment;
+use crate::store::Store;
+use crate::tables::{self, TableSchema};
+use crate::{Error, Result};
+
+/// Name of the data package descriptor in an export folder.
+pub const DESCRIPTOR: &str = "datapackage.json";
+
+/// Package name used when the database does not hold exactly one experiment.
+const FALLBACK_NAME: &str = "fieldcage";
+
+/// Table Schema keys copied into the data package. Others (`$schema`, and
+/// `uniqueKeys`, which Table Schema v1 does not define) are left out; the
+/// table's name, title and description go on the resource instead.
+const SCHEMA_KEYS: &[&str] = &["fields", "missingValues", "primaryKey", "foreignKeys"];
+
+/// What an export wrote.
+#[derive(Debug, Clone, Default, PartialEq, Eq)]
+pub struct ExportSummary {
+    /// Rows written per table, in export order.
+    pub tables: Vec<(String, usize)>,
+}
+
+/// The CSV file name of a table.
+pub fn file_name(schema: &TableSchema) -> String {
+    format!("{}.csv", schema.name)
+}
+
+/// Write every table and `datapackage.json` into `out` (made if missing).
+/// Files of an earlier export in the same folder are replaced.
+pub fn export(store: &Store, out: &Path) -> Result<ExportSummary> {
+    fs::create_dir_all(out).map_err(|e| Error::io(out, e))?;
+    // One read transaction: every table comes from the same snapshot, even if
+    // another connection writes meanwhile. It only reads, so dropping it
+    // (a rollback) is all the cleanup it needs.
+    let snapshot = store.conn().unchecked_transaction()?;
+    let mut summary = ExportSummary::default();
+    for schema in tables::all() {
+        let rows = store.rows(schema)?;
+        let bytes = table_csv(schema, &rows)?;
+        write_file(out, &file_name(schema), &bytes)?;
+        summary.tables.push((schema.name.clone(), rows.len()));
+    }
+    let descriptor = data_package(store)?;
+    drop(snapshot);
+    let mut text = serde_json::to_string_pretty(&descriptor)
+        .map_err(|e| Error::State(format!("{DESCRIPTOR}: cannot serialise: {e}")))?;
+    text.push('\n');
+    write_file(out, DESCRIPTOR, text.as_bytes())?;
+    sync_dir(out)?;
+    Ok(summary)
+}
+
+/// One table as CSV bytes: the header, then one line per row.
+fn table_csv(schema: &TableSchema, rows: &[Vec<rusqlite::types::Value>]) -> Result<Vec<u8>> {
+    let mut csv = csv::WriterBuilder::new()
+        .quote_style(csv::QuoteStyle::Necessary)
+        .terminator(csv::Terminator::Any(b'\n'))
+        .from_writer(Vec::new());
+    let failed = |e: csv::Error| Error::State(format!("{}: cannot write CSV: {e}", schema.name));
+    csv.write_record(schema.fields.iter().map(|f| f.name.as_str()))
+        .map_err(failed)?;
+    for row in rows {
+        csv.write_record(schema.fields.iter().zip(row).map(|(f, v)| f.format_cell(v)))
+            .map_err(failed)?;
+    }
+    csv.into_inner()
+        .map_err(|e| Error::State(format!("{}: cannot write CSV: {e}", schema.name)))
+}
+
+/// The `datapackage.json` descriptor.
+fn data_package(store: &Store) -> Result<Json> {
+    let (name, title) = package_name(store)?;
+    let resources: Vec<Json> = tables::all().iter().map(resource).collect();
+    Ok(json!({
+        "profile": "tabular-data-package",
+        "name": name,
+        "title": title,
+        "resources": resources,
+    }))
+}
+
+/// Package name and title from the experiment: its code in lower case and its
+/// title, or fieldcage's own when there is not exactly one experiment.
+fn package_name(store: &Store) -> Result<(String, String)> {
+    let experiments = store.list::<Experiment>()?;
+    let fallback = || (FALLBACK_NAME.to_owned(), "fieldcage export".to_owned());
+    Ok(match experiments.as_slice() {
+        [experiment] => {
+            let name = experiment.code.to_ascii_lowercase();
+            // Data Package names are lower-case letters, digits, . _ and -.
+            let valid = !name.is_empty()
+                && name
+                    .bytes()
+                    .all(|b| b.is_ascii_lowercase() || b.is_ascii_digit() || b"._-".contains(&b));
+            if valid {
+                (name, experiment.title.clone())
+            } else {
+                fallback()
+            }
+        }
+        _ => fallback(),
+    })
+}
+
+/// The Tabular Data Resource of one table.
+fn resource(schema: &TableSchema) -> Json {
+    let mut table_schema = Map::new();
+    if let Json::Object(source) = &schema.json {
+        for key in SCHEMA_KEYS {
+            if let Some(v) = source.get(*key) {
+                table_schema.insert((*key).to_owned(), v.clone());
+            }
+        }
+    }
+    json!({
+        "name": schema.name,
+        "path": file_name(schema),
+        "profile": "tabular-data-resource",
+        "title": schema.title,
+        "description": schema.description,
+        "format": "csv",
+        "mediatype": "text/csv",
+        "encoding": "utf-8",
+        "dialect": {
+            "delimiter": ",",
+            "lineTerminator": "\n",
+            "quoteChar": "\"",
+            "doubleQuote": true,
+            "header": true,
+        },
+        "schema": table_schema,
+    })
+}
+
+/// Write `bytes` to `dir/name` through a temporary file: written, flushed to
+/// disk, then renamed over the target.
+fn write_file(dir: &Path, name: &str, bytes: &[u8]) -> Result<()> {
+    let target = dir.join(name);
+    let partial = dir.join(format!(".{name}.partial"));
+    let written = File::create(&partial)
+        .and_then(|mut f| {
+            f.write_all(bytes)?;
+            f.sync_all()
+        })
+        .and_then(|()| fs::rename(&partial, &target));
+    written.map_err(|e| {
+        // Best effort: the partial file is useless; the error that matters is `e`.
+        let _ = fs::remove_file(&partial);
+        Error::io(&target, e)
+    })
+}
+
+/// Make the renames durable (a directory's entries are flushed separately on
+/// Unix; elsewhere the rename is all there is).
+fn sync_dir(dir: &Path) -> Result<()> {
+    #[cfg(unix)]
+    File::open(dir)
+        .and_then(|d| d.sync_all())
+        .map_err(|e| Error::io(dir, e))?;
+    #[cfg(not(unix))]
+    let _ = dir;
+    Ok(())
+}

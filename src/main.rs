@@ -1,1 +1,145 @@
-fn main() {}
+//! The `fieldcage` command line: glue between the person at the keyboard and
+//! the library. Errors are mapped to exit codes here and nowhere else.
+
+use std::path::PathBuf;
+use std::process::ExitCode;
+
+use anyhow::Context;
+use clap::{Parser, Subcommand};
+use fieldcage::{Store, demo, export, import, setup};
+
+/// Offline-first field recorder for cage experiments on predators, herbivores and plants.
+#[derive(Debug, Parser)]
+#[command(name = "fieldcage", version, about)]
+struct Cli {
+    #[command(subcommand)]
+    command: Command,
+}
+
+#[derive(Debug, Subcommand)]
+enum Command {
+    /// Create a database from an experiment definition and randomise treatments.
+    Init {
+        /// The database file to create.
+        #[arg(long)]
+        db: PathBuf,
+        /// The experiment definition (TOML; see demo_data/definition.toml).
+        definition: PathBuf,
+        /// Randomisation seed (recorded); a random one is drawn and printed if left out.
+        #[arg(long)]
+        seed: Option<u64>,
+    },
+    /// Print the layout: blocks, cages and their treatments.
+    Layout {
+        /// The database file.
+        #[arg(long)]
+        db: PathBuf,
+    },
+    /// Build the invented demo season into a new database.
+    Demo {
+        /// The database file to create.
+        #[arg(long)]
+        db: PathBuf,
+    },
+    /// Write the tidy tables and datapackage.json to a folder.
+    Export {
+        /// The database file.
+        #[arg(long)]
+        db: PathBuf,
+        /// Output folder (created if missing).
+        #[arg(long)]
+        out: PathBuf,
+    },
+    /// Read exported tables back into a database; a bad file is rejected whole.
+    Import {
+        /// The database file (created if missing).
+        #[arg(long)]
+        db: PathBuf,
+        /// Folder holding the tables.
+        dir: PathBuf,
+    },
+}
+
+fn main() -> ExitCode {
+    match run(Cli::parse()) {
+        Ok(()) => ExitCode::SUCCESS,
+        Err(e) => {
+            eprintln!("fieldcage: {e:#}");
+            ExitCode::from(2)
+        }
+    }
+}
+
+/// Refuse to build into a file that already exists: init and demo make new databases.
+fn new_database(db: &PathBuf) -> anyhow::Result<Store> {
+    if db.exists() {
+        anyhow::bail!("{} already exists; give a new file name", db.display());
+    }
+    Store::open(db).with_context(|| format!("opening {}", db.display()))
+}
+
+fn existing_database(db: &PathBuf) -> anyhow::Result<Store> {
+    if !db.exists() {
+        anyhow::bail!("{} does not exist", db.display());
+    }
+    Store::open(db).with_context(|| format!("opening {}", db.display()))
+}
+
+fn run(cli: Cli) -> anyhow::Result<()> {
+    match cli.command {
+        Command::Init { db, definition, seed } => {
+            let def = setup::definition::read(&definition)?;
+            let mut store = new_database(&db)?;
+            let seed = seed.unwrap_or_else(setup::fresh_seed);
+            let result = setup::init(&mut store, &def, seed);
+            if result.is_err() {
+                drop(store);
+                remove_database(&db);
+            }
+            let summary = result?;
+            println!(
+                "created {}: {} cages, {} treatments, randomisation seed {}",
+                db.display(),
+                summary.enclosures,
+                summary.treatments,
+                summary.seed
+            );
+        }
+        Command::Layout { db } => {
+            let store = existing_database(&db)?;
+            print!("{}", setup::format_layout(&setup::layout(&store)?));
+        }
+        Command::Demo { db } => {
+            let mut store = new_database(&db)?;
+            let problems = demo::build(&mut store)?;
+            println!(
+                "built the demo season in {} ({} changes logged; {} deliberate problems planted for the checks)",
+                db.display(),
+                store.change_count()?,
+                problems.len()
+            );
+        }
+        Command::Export { db, out } => {
+            let store = existing_database(&db)?;
+            let summary = export::export(&store, &out)?;
+            let rows: usize = summary.tables.iter().map(|(_, n)| n).sum();
+            println!("wrote {} tables ({rows} rows) and datapackage.json to {}", summary.tables.len(), out.display());
+        }
+        Command::Import { db, dir } => {
+            let mut store = Store::open(&db).with_context(|| format!("opening {}", db.display()))?;
+            let summary = import::import(&mut store, &dir)?;
+            let rows: usize = summary.tables.iter().map(|(_, n)| n).sum();
+            println!("imported {rows} rows from {} tables into {}", summary.tables.len(), db.display());
+        }
+    }
+    Ok(())
+}
+
+/// Remove a database that `init` created but could not fill.
+fn remove_database(db: &PathBuf) {
+    for suffix in ["", "-wal", "-shm"] {
+        let mut path = db.clone().into_os_string();
+        path.push(suffix);
+        let _ = std::fs::remove_file(path);
+    }
+}

@@ -337,9 +337,9 @@ CREATE TABLE cover_record (
     pin_hits INTEGER,
     cover_pct REAL,
     notes TEXT,
+    deleted INTEGER NOT NULL DEFAULT 0 CHECK (deleted IN (0, 1)),
     -- a cover row is about either a plant taxon or a ground category, never both
-    CHECK ((taxon_id IS NULL) <> (category IS NULL)),
-    deleted INTEGER NOT NULL DEFAULT 0 CHECK (deleted IN (0, 1))
+    CHECK ((taxon_id IS NULL) <> (category IS NULL))
 ) STRICT;
 
 CREATE UNIQUE INDEX cover_record_visit_id_taxon_id_category_key ON cover_record (visit_id, coalesce(taxon_id, ''), coalesce(category, '')) WHERE deleted = 0;

@@ -1,0 +1,223 @@
+//! The change log: every write is in it, in the same transaction; a rejected
+//! write leaves nothing behind; the tables can be rebuilt from the log.
+
+use std::collections::BTreeMap;
+
+use fieldcage::model::*;
+use fieldcage::tables;
+use rusqlite::types::Value;
+
+use crate::util::{Temp, count, demo_store, snapshot};
+
+/// Replay the log: (table, row id) → field → value, and the deleted rows.
+fn replay(store: &fieldcage::Store) -> BTreeMap<(String, String), BTreeMap<String, Value>> {
+    let mut rows: BTreeMap<(String, String), BTreeMap<String, Value>> = BTreeMap::new();
+    let mut stmt = store
+        .conn()
+        .prepare("SELECT table_name, row_id, op, field, new_value FROM change_log ORDER BY hlc, device_id, seq")
+        .unwrap();
+    let entries = stmt
+        .query_map([], |r| {
+            Ok((
+                r.get::<_, String>(0)?,
+                r.get::<_, String>(1)?,
+                r.get::<_, String>(2)?,
+                r.get::<_, Option<String>>(3)?,
+                r.get::<_, Value>(4)?,
+            ))
+        })
+        .unwrap();
+    for e in entries {
+        let (table, id, op, field, value) = e.unwrap();
+        match op.as_str() {
+            "delete" => {
+                rows.remove(&(table, id));
+            }
+            _ => {
+                rows.entry((table, id)).or_default().insert(field.unwrap(), value);
+            }
+        }
+    }
+    rows
+}
+
+/// The live tables in the same shape, leaving out NULLs.
+fn live_tables(store: &fieldcage::Store) -> BTreeMap<(String, String), BTreeMap<String, Value>> {
+    let mut out = BTreeMap::new();
+    for schema in tables::all() {
+        for row in store.rows(schema).unwrap() {
+            let Value::Text(id) = &row[0] else { panic!("id is text") };
+            let fields: BTreeMap<String, Value> = schema
+                .fields
+                .iter()
+                .zip(&row)
+                .filter(|(_, v)| !matches!(v, Value::Null))
+                .map(|(f, v)| (f.name.clone(), v.clone()))
+                .collect();
+            out.insert((schema.name.clone(), id.clone()), fields);
+        }
+    }
+    out
+}
+
+#[test]
+fn every_write_of_the_demo_build_is_in_the_change_log() {
+    let tmp = Temp::new();
+    let store = demo_store(&tmp);
+    let live = live_tables(&store);
+    assert!(live.len() > 2_000, "the demo season has {} rows", live.len());
+    // Rebuilding every row from the log gives exactly the tables.
+    assert_eq!(replay(&store), live);
+    // Every non-empty field of every row has its entries: nothing written unlogged,
+    // and every entry beyond the first of a field is an update of it.
+    let fields: usize = live.values().map(|f| f.len()).sum();
+    let (distinct, updates): (i64, i64) = store
+        .conn()
+        .query_row(
+            "SELECT (SELECT count(*) FROM (SELECT DISTINCT table_name, row_id, field FROM change_log)), \
+                    (SELECT count(*) FROM change_log WHERE op = 'update')",
+            [],
+            |r| Ok((r.get(0)?, r.get(1)?)),
+        )
+        .unwrap();
+    assert_eq!(distinct as usize, fields);
+    assert_eq!(store.change_count().unwrap(), distinct + updates);
+}
+
+#[test]
+fn sequence_numbers_are_contiguous_and_persisted() {
+    let tmp = Temp::new();
+    let store = demo_store(&tmp);
+    let (min, max, n): (i64, i64, i64) = store
+        .conn()
+        .query_row("SELECT min(seq), max(seq), count(*) FROM change_log WHERE device_id = ?1", [store.device_id()], |r| {
+            Ok((r.get(0)?, r.get(1)?, r.get(2)?))
+        })
+        .unwrap();
+    assert_eq!((min, max), (1, n));
+    let next: i64 = store
+        .conn()
+        .query_row("SELECT next_seq FROM local_device", [], |r| r.get(0))
+        .unwrap();
+    assert_eq!(next, n + 1);
+}
+
+#[test]
+fn a_rejected_write_leaves_every_table_unchanged() {
+    let tmp = Temp::new();
+    let mut store = demo_store(&tmp);
+    let before = snapshot(&store);
+    let visit = store.list::<Visit>().unwrap().into_iter().find(|v| v.kind == VisitKind::Cover).unwrap();
+    let animals: Vec<TaxonId> =
+        store.list::<Taxon>().unwrap().into_iter().filter(|t| t.role != Role::Plant).map(|t| t.id).collect();
+    let result = store.write(|w| {
+        // Two good writes, then a bad one: the whole transaction must go.
+        let mut v = visit.clone();
+        v.notes = Some("looked twice".into());
+        w.update(&v)?;
+        let id = w.new_id();
+        w.insert(&Census {
+            id: CensusId(id),
+            visit_id: visit.id,
+            taxon_id: animals[0],
+            alive: Some(3),
+            dead: None,
+            missing: None,
+            notes: None,
+        })?;
+        let id = w.new_id();
+        w.insert(&Census {
+            id: CensusId(id),
+            visit_id: visit.id,
+            taxon_id: animals[1],
+            alive: Some(-1),
+            dead: None,
+            missing: None,
+            notes: None,
+        })
+    });
+    let err = result.unwrap_err().to_string();
+    assert!(err.contains("census.alive") && err.contains("-1"), "names field and value: {err}");
+    assert_eq!(snapshot(&store), before);
+}
+
+#[test]
+fn updates_and_deletes_log_old_and_new_values() {
+    let tmp = Temp::new();
+    let mut store = demo_store(&tmp);
+    let mut c = store.list::<Census>().unwrap()[0].clone();
+    let old_alive = c.alive;
+    c.alive = Some(old_alive.unwrap() + 1);
+    let changed = store.write(|w| w.update(&c)).unwrap();
+    assert_eq!(changed, 1, "only alive changed");
+    let (op, old, new): (String, i64, i64) = store
+        .conn()
+        .query_row(
+            "SELECT op, old_value, new_value FROM change_log WHERE row_id = ?1 AND field = 'alive' ORDER BY seq DESC LIMIT 1",
+            [c.id.to_string()],
+            |r| Ok((r.get(0)?, r.get(1)?, r.get(2)?)),
+        )
+        .unwrap();
+    assert_eq!((op.as_str(), old, new), ("update", old_alive.unwrap(), old_alive.unwrap() + 1));
+
+    let schema = tables::get("census").unwrap();
+    let before = count(&store, "census");
+    store.write(|w| w.delete(schema, &c.id.to_string())).unwrap();
+    assert_eq!(count(&store, "census"), before - 1);
+    assert!(store.get::<Census>(c.id.uuid()).unwrap().is_none());
+    // A tombstone: the row is still there, flagged, and the delete is logged.
+    let (deleted, logged): (i64, i64) = store
+        .conn()
+        .query_row(
+            "SELECT (SELECT deleted FROM census WHERE id = ?1), \
+                    (SELECT count(*) FROM change_log WHERE row_id = ?1 AND op = 'delete')",
+            [c.id.to_string()],
+            |r| Ok((r.get(0)?, r.get(1)?)),
+        )
+        .unwrap();
+    assert_eq!((deleted, logged), (1, 1));
+}
+
+#[test]
+fn deleting_a_row_that_others_refer_to_is_refused() {
+    let tmp = Temp::new();
+    let mut store = demo_store(&tmp);
+    let before = snapshot(&store);
+    let visit = store.list::<Census>().unwrap()[0].visit_id;
+    let err = store
+        .write(|w| w.delete(tables::get("visit").unwrap(), &visit.to_string()))
+        .unwrap_err()
+        .to_string();
+    assert!(err.contains("census row(s) refer to it"), "{err}");
+    assert_eq!(snapshot(&store), before);
+}
+
+#[test]
+fn hlc_timestamps_never_go_backwards_when_the_clock_does() {
+    use std::sync::Arc;
+    use std::sync::atomic::{AtomicI64, Ordering};
+    let tmp = Temp::new();
+    let wall = Arc::new(AtomicI64::new(1_800_000_000_000));
+    let clock = {
+        let wall = wall.clone();
+        Arc::new(move || wall.load(Ordering::SeqCst))
+    };
+    let path = tmp.path("clock.db");
+    let mut store = fieldcage::Store::open_with_clock(&path, clock).unwrap();
+    let def = crate::util::demo_definition_with(&[]).unwrap();
+    fieldcage::setup::init(&mut store, &def, 1).unwrap();
+    wall.store(0, Ordering::SeqCst); // the tablet's clock falls back to 1970
+    let mut t = store.list::<Treatment>().unwrap()[0].clone();
+    t.notes = Some("after the clock reset".into());
+    store.write(|w| w.update(&t)).unwrap();
+    let hlcs: Vec<i64> = store
+        .conn()
+        .prepare("SELECT hlc FROM change_log ORDER BY seq")
+        .unwrap()
+        .query_map([], |r| r.get(0))
+        .unwrap()
+        .collect::<Result<_, _>>()
+        .unwrap();
+    assert!(hlcs.windows(2).all(|w| w[0] <= w[1]), "timestamps follow the sequence");
+    assert!(hlcs.last() > hlcs.first(), "the later write has the later timestamp");
+}

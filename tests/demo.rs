@@ -1,0 +1,75 @@
+//! The demo season: reproducible, plausible for its invented scenario, and
+//! shipped in demo_data/ without drift.
+
+use std::path::Path;
+
+use fieldcage::model::*;
+
+use crate::util::{Temp, data_snapshot, demo_store};
+
+#[test]
+fn the_demo_season_is_the_same_on_every_build() {
+    let a = Temp::new();
+    let b = Temp::new();
+    // The device id and change-log clock differ per database; the data do not.
+    let sa = data_snapshot(&demo_store(&a));
+    let sb = data_snapshot(&demo_store(&b));
+    assert!(sa.len() > 100_000);
+    assert_eq!(sa, sb);
+}
+
+#[test]
+fn the_demo_season_covers_every_cage_and_visit_kind() {
+    let tmp = Temp::new();
+    let store = demo_store(&tmp);
+    let visits = store.list::<Visit>().unwrap();
+    let enclosures = store.list::<Enclosure>().unwrap();
+    assert_eq!(enclosures.len(), 24, "6 blocks x 4 treatments (DESIGN.md demo scenario)");
+    for kind in VisitKind::ALL {
+        assert!(visits.iter().any(|v| v.kind == *kind), "{kind} visits");
+    }
+    for e in &enclosures {
+        let n = visits.iter().filter(|v| v.enclosure_id == e.id).count();
+        // 1 stocking + 10 census + 3 cover + 4 damage, give or take the planted problems.
+        assert!((17..=19).contains(&n), "{} has {n} visits", e.label);
+    }
+    assert_eq!(store.list::<TaggedLeaf>().unwrap().len(), 72, "3 tagged leaves per cage");
+}
+
+#[test]
+fn the_demo_season_is_plausible_for_its_scenario() {
+    let tmp = Temp::new();
+    let store = demo_store(&tmp);
+    let mean_damage = |treatment: &str| -> f64 {
+        store
+            .conn()
+            .query_row(
+                "SELECT avg(d.damage_pct) FROM damage_record d JOIN visit v ON v.id = d.visit_id \
+                 JOIN assignment a ON a.enclosure_id = v.enclosure_id JOIN treatment t ON t.id = a.treatment_id \
+                 WHERE t.code = ?1 AND v.day = 28",
+                [treatment],
+                |r| r.get(0),
+            )
+            .unwrap()
+    };
+    // Invented scenario: slugs alone damage most, a lethal beetle least, risk in between; plants-only little.
+    let (p, s, sb, sr) = (mean_damage("P"), mean_damage("S"), mean_damage("SB"), mean_damage("SR"));
+    assert!(p < sb && sb < sr && sr < s, "P {p}, SB {sb}, SR {sr}, S {s}");
+}
+
+#[test]
+fn every_planted_problem_names_a_real_cage_and_day() {
+    let tmp = Temp::new();
+    let store = demo_store(&tmp);
+    let problems = fieldcage::demo::planted_problems(&store).unwrap();
+    assert_eq!(problems.len(), 8);
+    let labels: Vec<String> = store.list::<Enclosure>().unwrap().into_iter().map(|e| e.label).collect();
+    for p in &problems {
+        assert!(labels.contains(&p.enclosure), "{p:?}");
+    }
+    let readme = std::fs::read_to_string(Path::new(env!("CARGO_MANIFEST_DIR")).join("demo_data/README.md")).unwrap();
+    for p in &problems {
+        let line = format!("| {} | {} | {} |", p.enclosure, p.day, p.what);
+        assert!(readme.contains(&line), "demo_data/README.md lists {line}");
+    }
+}
