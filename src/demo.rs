@@ -104,14 +104,24 @@ enum Plant {
 
 impl Season {
     fn load(store: &Store, def: &Definition) -> Result<Season> {
-        let offset: FixedOffset = def
-            .experiment
-            .utc_offset
-            .parse()
-            .map_err(|_| Error::invalid("experiment", "utc_offset", &def.experiment.utc_offset, "is not an offset"))?;
-        let treatments: HashMap<TreatmentId, Treatment> =
-            store.list::<Treatment>()?.into_iter().map(|t| (t.id, t)).collect();
-        let blocks: HashMap<BlockId, String> = store.list::<Block>()?.into_iter().map(|b| (b.id, b.code)).collect();
+        let offset: FixedOffset = def.experiment.utc_offset.parse().map_err(|_| {
+            Error::invalid(
+                "experiment",
+                "utc_offset",
+                &def.experiment.utc_offset,
+                "is not an offset",
+            )
+        })?;
+        let treatments: HashMap<TreatmentId, Treatment> = store
+            .list::<Treatment>()?
+            .into_iter()
+            .map(|t| (t.id, t))
+            .collect();
+        let blocks: HashMap<BlockId, String> = store
+            .list::<Block>()?
+            .into_iter()
+            .map(|b| (b.id, b.code))
+            .collect();
         let assignment: HashMap<EnclosureId, TreatmentId> = store
             .list::<Assignment>()?
             .into_iter()
@@ -137,12 +147,25 @@ impl Season {
         for (i, c) in cages.iter_mut().enumerate() {
             c.index = i;
         }
-        let taxa: HashMap<String, TaxonId> = store.list::<Taxon>()?.into_iter().map(|t| (t.code, t.id)).collect();
-        let taxon_code: HashMap<TaxonId, String> = taxa.iter().map(|(c, id)| (*id, c.clone())).collect();
+        let taxa: HashMap<String, TaxonId> = store
+            .list::<Taxon>()?
+            .into_iter()
+            .map(|t| (t.code, t.id))
+            .collect();
+        let taxon_code: HashMap<TaxonId, String> =
+            taxa.iter().map(|(c, id)| (*id, c.clone())).collect();
         let plans = store
             .list::<StockingPlan>()?
             .into_iter()
-            .map(|p| ((treatments[&p.treatment_id].code.clone(), taxon_code[&p.taxon_id].clone()), p))
+            .map(|p| {
+                (
+                    (
+                        treatments[&p.treatment_id].code.clone(),
+                        taxon_code[&p.taxon_id].clone(),
+                    ),
+                    p,
+                )
+            })
             .collect();
         Ok(Season {
             start: def.start_date(),
@@ -169,19 +192,53 @@ impl Season {
             what,
         };
         vec![
-            p(self.cage("B3", "S"), 14, "cover typo: a forb entered as 45 % instead of 4.5 %, so species + ground exceed 100 %"),
-            p(self.cage("B4", "SB"), 18, "census visit skipped (missing repeat visit)"),
-            p(self.cage("B4", "P"), 21, "one slug found alive in a plants-only cage (contamination)"),
-            p(self.cage("B2", "S"), 12, "12 slugs counted alive where at most 10 can be"),
-            p(self.cage("B2", "SR"), 21, "damage on tagged leaf T1 scored lower than at day 14, with no fate"),
-            p(self.cage("B5", "SB"), 28, "tagged leaf T3 not scored and no fate recorded"),
-            p(self.cage("B1", "S"), 9, "census recorded without an observer"),
-            p(self.cage("B6", "SR"), 27, "census entered twice on the same day"),
+            p(
+                self.cage("B3", "S"),
+                14,
+                "cover typo: a forb entered as 45 % instead of 4.5 %, so species + ground exceed 100 %",
+            ),
+            p(
+                self.cage("B4", "SB"),
+                18,
+                "census visit skipped (missing repeat visit)",
+            ),
+            p(
+                self.cage("B4", "P"),
+                21,
+                "one slug found alive in a plants-only cage (contamination)",
+            ),
+            p(
+                self.cage("B2", "S"),
+                12,
+                "12 slugs counted alive where at most 10 can be",
+            ),
+            p(
+                self.cage("B2", "SR"),
+                21,
+                "damage on tagged leaf T1 scored lower than at day 14, with no fate",
+            ),
+            p(
+                self.cage("B5", "SB"),
+                28,
+                "tagged leaf T3 not scored and no fate recorded",
+            ),
+            p(
+                self.cage("B1", "S"),
+                9,
+                "census recorded without an observer",
+            ),
+            p(
+                self.cage("B6", "SR"),
+                27,
+                "census entered twice on the same day",
+            ),
         ]
     }
 
     fn problem(&self, problems: &[PlantedProblem], cage: &Cage, day: i64) -> Option<Plant> {
-        let i = problems.iter().position(|p| p.enclosure == cage.label && p.day == day)?;
+        let i = problems
+            .iter()
+            .position(|p| p.enclosure == cage.label && p.day == day)?;
         Some(
             [
                 Plant::CoverTypo,
@@ -211,11 +268,17 @@ impl Season {
         let mut rng = ChaCha8Rng::seed_from_u64(RECORD_SEED);
         let slug = self.taxa["SLUG"];
         let beetle = self.taxa["BEET"];
-        let plants = ["GRA1", "GRA2", "CLO1", "CLO2", "FOR1", "FOR2", "FOR3", "SED1"];
+        let plants = [
+            "GRA1", "GRA2", "CLO1", "CLO2", "FOR1", "FOR2", "FOR3", "SED1",
+        ];
         let leaf_taxa = ["FOR1", "CLO1", "FOR2"];
         let last_day = self.schedule.iter().map(|(_, d)| *d).max().unwrap_or(0);
         for cage in &self.cages {
-            let observer = if cage.index % 2 == 0 { "crew-A" } else { "crew-B" };
+            let observer = if cage.index % 2 == 0 {
+                "crew-A"
+            } else {
+                "crew-B"
+            };
             let visit = |w: &mut Writer<'_>, kind, day, minutes, observer: Option<&str>| {
                 record::start_visit(
                     w,
@@ -245,25 +308,37 @@ impl Season {
             for day in 0..=last_day {
                 // Slugs die at a daily rate that a lethal beetle raises (toy numbers).
                 if day > 0 {
-                    let kill = if cage.mode == PredatorMode::Lethal && beetles > 0 { 0.04 } else { 0.0 };
-                    for _ in 0..slugs {
+                    let kill = if cage.mode == PredatorMode::Lethal && beetles > 0 {
+                        0.04
+                    } else {
+                        0.0
+                    };
+                    for _ in 0..slugs.max(0) {
                         let u: f64 = rng.random();
                         if u < kill {
                             slugs -= 1;
                             slug_gone += 1;
                         } else if u < kill + 0.008 {
                             slugs -= 1;
-                            if rng.random_bool(0.6) { slug_dead += 1 } else { slug_gone += 1 }
+                            if rng.random_bool(0.6) {
+                                slug_dead += 1
+                            } else {
+                                slug_gone += 1
+                            }
                         }
                     }
-                    for _ in 0..beetles {
+                    for _ in 0..beetles.max(0) {
                         if rng.random_bool(0.004) {
                             beetles -= 1;
                             beetle_dead += 1;
                         }
                     }
                     // Slugs feed less when a predator is present (risk or lethal).
-                    let fear = if cage.mode == PredatorMode::None { 1.0 } else { 0.55 };
+                    let fear = if cage.mode == PredatorMode::None {
+                        1.0
+                    } else {
+                        0.55
+                    };
                     slug_days += slugs as f64 * fear;
                 }
                 let plant = self.problem(problems, cage, day);
@@ -273,7 +348,14 @@ impl Season {
                             let v = visit(w, VisitKind::Stocking, day, 0, Some(observer))?;
                             for (code, taxon) in [("SLUG", slug), ("BEET", beetle)] {
                                 if let Some(p) = plan(code) {
-                                    record::stock(w, v.id, taxon, StockingKind::Initial, p.initial_count, p.stage.clone())?;
+                                    record::stock(
+                                        w,
+                                        v.id,
+                                        taxon,
+                                        StockingKind::Initial,
+                                        p.initial_count,
+                                        p.stage.clone(),
+                                    )?;
                                 }
                             }
                             record::complete_visit(w, v.id)?;
@@ -283,7 +365,11 @@ impl Season {
                                 continue;
                             }
                             let obs = (plant != Some(Plant::NoObserver)).then_some(observer);
-                            let repeats = if plant == Some(Plant::DuplicateCensus) { 2 } else { 1 };
+                            let repeats = if plant == Some(Plant::DuplicateCensus) {
+                                2
+                            } else {
+                                1
+                            };
                             for r in 0..repeats {
                                 let v = visit(w, VisitKind::Census, day, 1 + 3 * r, obs)?;
                                 let mut alive = slugs;
@@ -293,8 +379,22 @@ impl Season {
                                 if plant == Some(Plant::Contamination) {
                                     alive = 1;
                                 }
-                                record::census(w, v.id, slug, Some(alive), Some(slug_dead), Some(slug_gone))?;
-                                record::census(w, v.id, beetle, Some(beetles), Some(beetle_dead), Some(0))?;
+                                record::census(
+                                    w,
+                                    v.id,
+                                    slug,
+                                    Some(alive),
+                                    Some(slug_dead),
+                                    Some(slug_gone),
+                                )?;
+                                record::census(
+                                    w,
+                                    v.id,
+                                    beetle,
+                                    Some(beetles),
+                                    Some(beetle_dead),
+                                    Some(0),
+                                )?;
                                 if r + 1 < repeats {
                                     continue;
                                 }
@@ -302,14 +402,28 @@ impl Season {
                                     && slugs < p.restock_below.unwrap_or(0)
                                 {
                                     let n = p.initial_count - slugs;
-                                    record::stock(w, v.id, slug, StockingKind::Restock, n, p.stage.clone())?;
+                                    record::stock(
+                                        w,
+                                        v.id,
+                                        slug,
+                                        StockingKind::Restock,
+                                        n,
+                                        p.stage.clone(),
+                                    )?;
                                     slugs += n;
                                 }
                                 if let Some(p) = plan("BEET")
                                     && beetles < p.restock_below.unwrap_or(0)
                                 {
                                     let n = p.initial_count - beetles;
-                                    record::stock(w, v.id, beetle, StockingKind::Restock, n, p.stage.clone())?;
+                                    record::stock(
+                                        w,
+                                        v.id,
+                                        beetle,
+                                        StockingKind::Restock,
+                                        n,
+                                        p.stage.clone(),
+                                    )?;
                                     beetles += n;
                                 }
                                 record::complete_visit(w, v.id)?;
@@ -323,7 +437,9 @@ impl Season {
                             for (i, code) in plants.iter().enumerate() {
                                 let palatable = code.starts_with("FOR") || code.starts_with("CLO");
                                 if palatable {
-                                    cover[i] = (cover[i] * (1.0 - pressure * rng.random_range(0.6..1.0f64))).round();
+                                    cover[i] = (cover[i]
+                                        * (1.0 - pressure * rng.random_range(0.6..1.0f64)))
+                                    .round();
                                 } else if day > 0 {
                                     cover[i] = (cover[i] * rng.random_range(1.0..1.15f64)).round();
                                 }
@@ -337,7 +453,12 @@ impl Season {
                                 } else {
                                     total += value;
                                 }
-                                record::cover(w, v.id, CoverTarget::Taxon(self.taxa[*code]), CoverEntry::Percent(value))?;
+                                record::cover(
+                                    w,
+                                    v.id,
+                                    CoverTarget::Taxon(self.taxa[*code]),
+                                    CoverEntry::Percent(value),
+                                )?;
                             }
                             if plant == Some(Plant::CoverTypo) {
                                 total += 4.5;
@@ -345,13 +466,29 @@ impl Season {
                             let rest = (100.0 - total).max(0.0);
                             let moss = (rest * 0.2).round();
                             let bare = (rest * 0.3).round();
-                            for (code, value) in [("litter", rest - moss - bare), ("bare", bare), ("moss", moss)] {
-                                record::cover(w, v.id, CoverTarget::Category(code.to_owned()), CoverEntry::Percent(value))?;
+                            for (code, value) in [
+                                ("litter", rest - moss - bare),
+                                ("bare", bare),
+                                ("moss", moss),
+                            ] {
+                                record::cover(
+                                    w,
+                                    v.id,
+                                    CoverTarget::Category(code.to_owned()),
+                                    CoverEntry::Percent(value),
+                                )?;
                             }
                             if day == 0 {
                                 for (i, code) in leaf_taxa.iter().enumerate() {
                                     let label = format!("{}-T{}", cage.label, i + 1);
-                                    let leaf = record::tag_leaf(w, cage.id, self.taxa[*code], &label, self.start, None)?;
+                                    let leaf = record::tag_leaf(
+                                        w,
+                                        cage.id,
+                                        self.taxa[*code],
+                                        &label,
+                                        self.start,
+                                        None,
+                                    )?;
                                     leaves.push((leaf.id, 0.0));
                                 }
                             }
@@ -366,7 +503,8 @@ impl Season {
                                 (true, PredatorMode::Risk) => 1.0,
                             };
                             for (i, (leaf, damage)) in leaves.iter_mut().enumerate() {
-                                *damage = (*damage + rate * 7.0 * rng.random_range(0.2..1.4f64)).min(95.0);
+                                *damage = (*damage + rate * 7.0 * rng.random_range(0.2..1.4f64))
+                                    .min(95.0);
                                 if plant == Some(Plant::LeafUnscored) && i == 2 {
                                     continue;
                                 }
@@ -374,7 +512,12 @@ impl Season {
                                 if plant == Some(Plant::DamageDecrease) && i == 0 {
                                     code = "0";
                                 }
-                                record::damage(w, v.id, *leaf, DamageEntry::Class(code.to_owned()))?;
+                                record::damage(
+                                    w,
+                                    v.id,
+                                    *leaf,
+                                    DamageEntry::Class(code.to_owned()),
+                                )?;
                             }
                             record::complete_visit(w, v.id)?;
                         }

@@ -87,9 +87,12 @@ pub fn import(store: &mut Store, dir: &Path) -> Result<ImportSummary> {
             .map(|t| (t.schema.name.clone(), t.rows.len()))
             .collect(),
     };
-    for table in files {
-        store.write(|w| insert_table(w, table))?;
-    }
+    store.write(|w| {
+        for table in files {
+            insert_table(w, table)?;
+        }
+        Ok(())
+    })?;
     Ok(summary)
 }
 

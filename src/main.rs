@@ -87,7 +87,11 @@ fn existing_database(db: &PathBuf) -> anyhow::Result<Store> {
 
 fn run(cli: Cli) -> anyhow::Result<()> {
     match cli.command {
-        Command::Init { db, definition, seed } => {
+        Command::Init {
+            db,
+            definition,
+            seed,
+        } => {
             let def = setup::definition::read(&definition)?;
             let mut store = new_database(&db)?;
             let seed = seed.unwrap_or_else(setup::fresh_seed);
@@ -123,22 +127,31 @@ fn run(cli: Cli) -> anyhow::Result<()> {
             let store = existing_database(&db)?;
             let summary = export::export(&store, &out)?;
             let rows: usize = summary.tables.iter().map(|(_, n)| n).sum();
-            println!("wrote {} tables ({rows} rows) and datapackage.json to {}", summary.tables.len(), out.display());
+            println!(
+                "wrote {} tables ({rows} rows) and datapackage.json to {}",
+                summary.tables.len(),
+                out.display()
+            );
         }
         Command::Import { db, dir } => {
-            let mut store = Store::open(&db).with_context(|| format!("opening {}", db.display()))?;
+            let mut store =
+                Store::open(&db).with_context(|| format!("opening {}", db.display()))?;
             let summary = import::import(&mut store, &dir)?;
             let rows: usize = summary.tables.iter().map(|(_, n)| n).sum();
-            println!("imported {rows} rows from {} tables into {}", summary.tables.len(), db.display());
+            println!(
+                "imported {rows} rows from {} tables into {}",
+                summary.tables.len(),
+                db.display()
+            );
         }
     }
     Ok(())
 }
 
 /// Remove a database that `init` created but could not fill.
-fn remove_database(db: &PathBuf) {
+fn remove_database(db: &std::path::Path) {
     for suffix in ["", "-wal", "-shm"] {
-        let mut path = db.clone().into_os_string();
+        let mut path = db.as_os_str().to_owned();
         path.push(suffix);
         let _ = std::fs::remove_file(path);
     }

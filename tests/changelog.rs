@@ -34,7 +34,9 @@ fn replay(store: &fieldcage::Store) -> BTreeMap<(String, String), BTreeMap<Strin
                 rows.remove(&(table, id));
             }
             _ => {
-                rows.entry((table, id)).or_default().insert(field.unwrap(), value);
+                rows.entry((table, id))
+                    .or_default()
+                    .insert(field.unwrap(), value);
             }
         }
     }
@@ -46,7 +48,9 @@ fn live_tables(store: &fieldcage::Store) -> BTreeMap<(String, String), BTreeMap<
     let mut out = BTreeMap::new();
     for schema in tables::all() {
         for row in store.rows(schema).unwrap() {
-            let Value::Text(id) = &row[0] else { panic!("id is text") };
+            let Value::Text(id) = &row[0] else {
+                panic!("id is text")
+            };
             let fields: BTreeMap<String, Value> = schema
                 .fields
                 .iter()
@@ -65,7 +69,11 @@ fn every_write_of_the_demo_build_is_in_the_change_log() {
     let tmp = Temp::new();
     let store = demo_store(&tmp);
     let live = live_tables(&store);
-    assert!(live.len() > 2_000, "the demo season has {} rows", live.len());
+    assert!(
+        live.len() > 2_000,
+        "the demo season has {} rows",
+        live.len()
+    );
     // Rebuilding every row from the log gives exactly the tables.
     assert_eq!(replay(&store), live);
     // Every non-empty field of every row has its entries: nothing written unlogged,
@@ -90,9 +98,11 @@ fn sequence_numbers_are_contiguous_and_persisted() {
     let store = demo_store(&tmp);
     let (min, max, n): (i64, i64, i64) = store
         .conn()
-        .query_row("SELECT min(seq), max(seq), count(*) FROM change_log WHERE device_id = ?1", [store.device_id()], |r| {
-            Ok((r.get(0)?, r.get(1)?, r.get(2)?))
-        })
+        .query_row(
+            "SELECT min(seq), max(seq), count(*) FROM change_log WHERE device_id = ?1",
+            [store.device_id()],
+            |r| Ok((r.get(0)?, r.get(1)?, r.get(2)?)),
+        )
         .unwrap();
     assert_eq!((min, max), (1, n));
     let next: i64 = store
@@ -107,9 +117,19 @@ fn a_rejected_write_leaves_every_table_unchanged() {
     let tmp = Temp::new();
     let mut store = demo_store(&tmp);
     let before = snapshot(&store);
-    let visit = store.list::<Visit>().unwrap().into_iter().find(|v| v.kind == VisitKind::Cover).unwrap();
-    let animals: Vec<TaxonId> =
-        store.list::<Taxon>().unwrap().into_iter().filter(|t| t.role != Role::Plant).map(|t| t.id).collect();
+    let visit = store
+        .list::<Visit>()
+        .unwrap()
+        .into_iter()
+        .find(|v| v.kind == VisitKind::Cover)
+        .unwrap();
+    let animals: Vec<TaxonId> = store
+        .list::<Taxon>()
+        .unwrap()
+        .into_iter()
+        .filter(|t| t.role != Role::Plant)
+        .map(|t| t.id)
+        .collect();
     let result = store.write(|w| {
         // Two good writes, then a bad one: the whole transaction must go.
         let mut v = visit.clone();
@@ -137,7 +157,10 @@ fn a_rejected_write_leaves_every_table_unchanged() {
         })
     });
     let err = result.unwrap_err().to_string();
-    assert!(err.contains("census.alive") && err.contains("-1"), "names field and value: {err}");
+    assert!(
+        err.contains("census.alive") && err.contains("-1"),
+        "names field and value: {err}"
+    );
     assert_eq!(snapshot(&store), before);
 }
 
@@ -158,11 +181,16 @@ fn updates_and_deletes_log_old_and_new_values() {
             |r| Ok((r.get(0)?, r.get(1)?, r.get(2)?)),
         )
         .unwrap();
-    assert_eq!((op.as_str(), old, new), ("update", old_alive.unwrap(), old_alive.unwrap() + 1));
+    assert_eq!(
+        (op.as_str(), old, new),
+        ("update", old_alive.unwrap(), old_alive.unwrap() + 1)
+    );
 
     let schema = tables::get("census").unwrap();
     let before = count(&store, "census");
-    store.write(|w| w.delete(schema, &c.id.to_string())).unwrap();
+    store
+        .write(|w| w.delete(schema, &c.id.to_string()))
+        .unwrap();
     assert_eq!(count(&store, "census"), before - 1);
     assert!(store.get::<Census>(c.id.uuid()).unwrap().is_none());
     // A tombstone: the row is still there, flagged, and the delete is logged.
@@ -218,6 +246,12 @@ fn hlc_timestamps_never_go_backwards_when_the_clock_does() {
         .unwrap()
         .collect::<Result<_, _>>()
         .unwrap();
-    assert!(hlcs.windows(2).all(|w| w[0] <= w[1]), "timestamps follow the sequence");
-    assert!(hlcs.last() > hlcs.first(), "the later write has the later timestamp");
+    assert!(
+        hlcs.windows(2).all(|w| w[0] <= w[1]),
+        "timestamps follow the sequence"
+    );
+    assert!(
+        hlcs.last() > hlcs.first(),
+        "the later write has the later timestamp"
+    );
 }

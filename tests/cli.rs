@@ -14,7 +14,11 @@ fn fieldcage(args: &[&str], cwd: &Path) -> Output {
 }
 
 fn ok(out: &Output) -> String {
-    assert!(out.status.success(), "stderr: {}", String::from_utf8_lossy(&out.stderr));
+    assert!(
+        out.status.success(),
+        "stderr: {}",
+        String::from_utf8_lossy(&out.stderr)
+    );
     String::from_utf8_lossy(&out.stdout).into_owned()
 }
 
@@ -23,7 +27,10 @@ fn files(dir: &Path) -> Vec<(String, Vec<u8>)> {
         .unwrap()
         .map(|e| {
             let e = e.unwrap();
-            (e.file_name().to_string_lossy().into_owned(), std::fs::read(e.path()).unwrap())
+            (
+                e.file_name().to_string_lossy().into_owned(),
+                std::fs::read(e.path()).unwrap(),
+            )
         })
         .collect();
     v.sort();
@@ -42,7 +49,11 @@ fn demo_export_import_export_round_trips_byte_for_byte() {
     ok(&fieldcage(&["export", "--db", "e.db", "--out", "y"], cwd));
     let x = files(&cwd.join("x"));
     let y = files(&cwd.join("y"));
-    assert_eq!(x.len(), fieldcage::tables::all().len() + 1, "a CSV per table and datapackage.json");
+    assert_eq!(
+        x.len(),
+        fieldcage::tables::all().len() + 1,
+        "a CSV per table and datapackage.json"
+    );
     assert_eq!(x, y);
 }
 
@@ -51,12 +62,43 @@ fn init_and_layout_from_the_shipped_definition() {
     let tmp = Temp::new();
     let cwd = tmp.dir.path();
     let def = Path::new(env!("CARGO_MANIFEST_DIR")).join("demo_data/definition.toml");
-    let out = ok(&fieldcage(&["init", "--db", "s.db", def.to_str().unwrap(), "--seed", "77"], cwd));
-    assert!(out.contains("24 cages, 4 treatments, randomisation seed 77"), "{out}");
+    let out = ok(&fieldcage(
+        &[
+            "init",
+            "--db",
+            "s.db",
+            def.to_str().unwrap(),
+            "--seed",
+            "77",
+        ],
+        cwd,
+    ));
+    assert!(
+        out.contains("24 cages, 4 treatments, randomisation seed 77"),
+        "{out}"
+    );
     let layout = ok(&fieldcage(&["layout", "--db", "s.db"], cwd));
-    assert_eq!(layout.lines().filter(|l| l.starts_with('B')).count(), 6, "{layout}");
-    ok(&fieldcage(&["init", "--db", "t.db", def.to_str().unwrap(), "--seed", "77"], cwd));
-    assert_eq!(ok(&fieldcage(&["layout", "--db", "t.db"], cwd)), layout, "same seed, same layout");
+    assert_eq!(
+        layout.lines().filter(|l| l.starts_with('B')).count(),
+        6,
+        "{layout}"
+    );
+    ok(&fieldcage(
+        &[
+            "init",
+            "--db",
+            "t.db",
+            def.to_str().unwrap(),
+            "--seed",
+            "77",
+        ],
+        cwd,
+    ));
+    assert_eq!(
+        ok(&fieldcage(&["layout", "--db", "t.db"], cwd)),
+        layout,
+        "same seed, same layout"
+    );
 }
 
 #[test]

@@ -24,7 +24,11 @@ fn the_demo_season_covers_every_cage_and_visit_kind() {
     let store = demo_store(&tmp);
     let visits = store.list::<Visit>().unwrap();
     let enclosures = store.list::<Enclosure>().unwrap();
-    assert_eq!(enclosures.len(), 24, "6 blocks x 4 treatments (DESIGN.md demo scenario)");
+    assert_eq!(
+        enclosures.len(),
+        24,
+        "6 blocks x 4 treatments (DESIGN.md demo scenario)"
+    );
     for kind in VisitKind::ALL {
         assert!(visits.iter().any(|v| v.kind == *kind), "{kind} visits");
     }
@@ -33,7 +37,11 @@ fn the_demo_season_covers_every_cage_and_visit_kind() {
         // 1 stocking + 10 census + 3 cover + 4 damage, give or take the planted problems.
         assert!((17..=19).contains(&n), "{} has {n} visits", e.label);
     }
-    assert_eq!(store.list::<TaggedLeaf>().unwrap().len(), 72, "3 tagged leaves per cage");
+    assert_eq!(
+        store.list::<TaggedLeaf>().unwrap().len(),
+        72,
+        "3 tagged leaves per cage"
+    );
 }
 
 #[test]
@@ -53,8 +61,16 @@ fn the_demo_season_is_plausible_for_its_scenario() {
             .unwrap()
     };
     // Invented scenario: slugs alone damage most, a lethal beetle least, risk in between; plants-only little.
-    let (p, s, sb, sr) = (mean_damage("P"), mean_damage("S"), mean_damage("SB"), mean_damage("SR"));
-    assert!(p < sb && sb < sr && sr < s, "P {p}, SB {sb}, SR {sr}, S {s}");
+    let (p, s, sb, sr) = (
+        mean_damage("P"),
+        mean_damage("S"),
+        mean_damage("SB"),
+        mean_damage("SR"),
+    );
+    assert!(
+        p < sb && sb < sr && sr < s,
+        "P {p}, SB {sb}, SR {sr}, S {s}"
+    );
 }
 
 #[test]
@@ -63,11 +79,18 @@ fn every_planted_problem_names_a_real_cage_and_day() {
     let store = demo_store(&tmp);
     let problems = fieldcage::demo::planted_problems(&store).unwrap();
     assert_eq!(problems.len(), 8);
-    let labels: Vec<String> = store.list::<Enclosure>().unwrap().into_iter().map(|e| e.label).collect();
+    let labels: Vec<String> = store
+        .list::<Enclosure>()
+        .unwrap()
+        .into_iter()
+        .map(|e| e.label)
+        .collect();
     for p in &problems {
         assert!(labels.contains(&p.enclosure), "{p:?}");
     }
-    let readme = std::fs::read_to_string(Path::new(env!("CARGO_MANIFEST_DIR")).join("demo_data/README.md")).unwrap();
+    let readme =
+        std::fs::read_to_string(Path::new(env!("CARGO_MANIFEST_DIR")).join("demo_data/README.md"))
+            .unwrap();
     for p in &problems {
         let line = format!("| {} | {} | {} |", p.enclosure, p.day, p.what);
         assert!(readme.contains(&line), "demo_data/README.md lists {line}");

@@ -57,6 +57,9 @@ fn blocks_are_drawn_with_roughly_uniform_orders() {
         }
     }
     let expected = 6_000.0 / 4.0;
-    let chi2: f64 = first.iter().map(|&o| (o as f64 - expected).powi(2) / expected).sum();
+    let chi2: f64 = first
+        .iter()
+        .map(|&o| (o as f64 - expected).powi(2) / expected)
+        .sum();
     assert!(chi2 < 16.27, "first positions {first:?}, chi-square {chi2}");
 }

@@ -28,21 +28,47 @@ fn open_visit(store: &mut Store, kind: VisitKind) -> VisitId {
 }
 
 fn taxon(store: &Store, code: &str) -> TaxonId {
-    store.list::<Taxon>().unwrap().into_iter().find(|t| t.code == code).unwrap().id
+    store
+        .list::<Taxon>()
+        .unwrap()
+        .into_iter()
+        .find(|t| t.code == code)
+        .unwrap()
+        .id
 }
 
 #[test]
 fn daubenmire_classes_convert_to_midpoints() {
     let tmp = Temp::new();
-    let mut store = store_with(&tmp, &[(r#"method = "percent""#, "method = \"class\"\nscale = \"daubenmire\"")], 1);
+    let mut store = store_with(
+        &tmp,
+        &[(
+            r#"method = "percent""#,
+            "method = \"class\"\nscale = \"daubenmire\"",
+        )],
+        1,
+    );
     let visit = open_visit(&mut store, VisitKind::Cover);
-    let taxa = [taxon(&store, "GRA1"), taxon(&store, "CLO1"), taxon(&store, "FOR1")];
+    let taxa = [
+        taxon(&store, "GRA1"),
+        taxon(&store, "CLO1"),
+        taxon(&store, "FOR1"),
+    ];
     let total: f64 = store
         .write(|w| {
             let mut total = 0.0;
             for (t, class) in taxa.iter().zip(["3", "2", "1"]) {
-                let row = record::cover(w, visit, CoverTarget::Taxon(*t), CoverEntry::Class(class.into()))?;
-                assert_eq!(row.class_code.as_deref(), Some(class), "the raw class is kept");
+                let row = record::cover(
+                    w,
+                    visit,
+                    CoverTarget::Taxon(*t),
+                    CoverEntry::Class(class.into()),
+                )?;
+                assert_eq!(
+                    row.class_code.as_deref(),
+                    Some(class),
+                    "the raw class is kept"
+                );
                 total += row.cover_pct.unwrap();
             }
             Ok(total)
@@ -55,15 +81,32 @@ fn daubenmire_classes_convert_to_midpoints() {
 #[test]
 fn a_class_code_not_on_the_scale_is_refused_with_the_scale_listed() {
     let tmp = Temp::new();
-    let mut store = store_with(&tmp, &[(r#"method = "percent""#, "method = \"class\"\nscale = \"daubenmire\"")], 1);
+    let mut store = store_with(
+        &tmp,
+        &[(
+            r#"method = "percent""#,
+            "method = \"class\"\nscale = \"daubenmire\"",
+        )],
+        1,
+    );
     let visit = open_visit(&mut store, VisitKind::Cover);
     let t = taxon(&store, "GRA1");
     let before = snapshot(&store);
     let err = store
-        .write(|w| record::cover(w, visit, CoverTarget::Taxon(t), CoverEntry::Class("7".into())))
+        .write(|w| {
+            record::cover(
+                w,
+                visit,
+                CoverTarget::Taxon(t),
+                CoverEntry::Class("7".into()),
+            )
+        })
         .unwrap_err()
         .to_string();
-    assert_eq!(err, "cover_record.class_code: is not a class of the scale (1, 2, 3, 4, 5, 6) (value: \"7\")");
+    assert_eq!(
+        err,
+        "cover_record.class_code: is not a class of the scale (1, 2, 3, 4, 5, 6) (value: \"7\")"
+    );
     assert_eq!(snapshot(&store), before);
 }
 
@@ -72,7 +115,10 @@ fn pin_hits_convert_to_percent_of_the_frame() {
     let tmp = Temp::new();
     let mut store = store_with(
         &tmp,
-        &[(r#"method = "percent""#, "method = \"pins\"\npins_per_frame = 10\nhit_rule = \"first\"")],
+        &[(
+            r#"method = "percent""#,
+            "method = \"pins\"\npins_per_frame = 10\nhit_rule = \"first\"",
+        )],
         1,
     );
     let visit = open_visit(&mut store, VisitKind::Cover);
@@ -83,8 +129,20 @@ fn pin_hits_convert_to_percent_of_the_frame() {
             Ok(vec![
                 record::cover(w, visit, CoverTarget::Taxon(grass), CoverEntry::Pins(4))?.cover_pct,
                 record::cover(w, visit, CoverTarget::Taxon(forb), CoverEntry::Pins(3))?.cover_pct,
-                record::cover(w, visit, CoverTarget::Category("litter".into()), CoverEntry::Pins(2))?.cover_pct,
-                record::cover(w, visit, CoverTarget::Category("bare".into()), CoverEntry::Pins(1))?.cover_pct,
+                record::cover(
+                    w,
+                    visit,
+                    CoverTarget::Category("litter".into()),
+                    CoverEntry::Pins(2),
+                )?
+                .cover_pct,
+                record::cover(
+                    w,
+                    visit,
+                    CoverTarget::Category("bare".into()),
+                    CoverEntry::Pins(1),
+                )?
+                .cover_pct,
             ])
         })
         .unwrap();
@@ -96,7 +154,10 @@ fn pin_hits_convert_to_percent_of_the_frame() {
         .write(|w| record::cover(w, visit, CoverTarget::Taxon(clover), CoverEntry::Pins(11)))
         .unwrap_err()
         .to_string();
-    assert!(err.contains("pin_hits") && err.contains("11") && err.contains("10 pins"), "{err}");
+    assert!(
+        err.contains("pin_hits") && err.contains("11") && err.contains("10 pins"),
+        "{err}"
+    );
 }
 
 #[test]
@@ -113,24 +174,62 @@ fn entries_that_do_not_fit_the_visit_or_protocol_are_refused() {
             "is a cover visit; this entry belongs to a census visit",
         ),
         (
-            store.write(|w| record::cover(w, cover_visit, CoverTarget::Taxon(slug), CoverEntry::Percent(5.0)).map(drop)),
+            store.write(|w| {
+                record::cover(
+                    w,
+                    cover_visit,
+                    CoverTarget::Taxon(slug),
+                    CoverEntry::Percent(5.0),
+                )
+                .map(drop)
+            }),
             "is a herbivore, not a plant",
         ),
         (
-            store.write(|w| record::cover(w, cover_visit, CoverTarget::Taxon(grass), CoverEntry::Class("3".into())).map(drop)),
+            store.write(|w| {
+                record::cover(
+                    w,
+                    cover_visit,
+                    CoverTarget::Taxon(grass),
+                    CoverEntry::Class("3".into()),
+                )
+                .map(drop)
+            }),
             "uses the percent method",
         ),
         (
-            store.write(|w| record::cover(w, cover_visit, CoverTarget::Taxon(grass), CoverEntry::Percent(120.0)).map(drop)),
+            store.write(|w| {
+                record::cover(
+                    w,
+                    cover_visit,
+                    CoverTarget::Taxon(grass),
+                    CoverEntry::Percent(120.0),
+                )
+                .map(drop)
+            }),
             "cover_record.value_pct: is above the maximum 100 (value: \"120\")",
         ),
         (
-            store.write(|w| record::cover(w, cover_visit, CoverTarget::Category("gravel".into()), CoverEntry::Percent(5.0)).map(drop)),
+            store.write(|w| {
+                record::cover(
+                    w,
+                    cover_visit,
+                    CoverTarget::Category("gravel".into()),
+                    CoverEntry::Percent(5.0),
+                )
+                .map(drop)
+            }),
             "is not a ground category",
         ),
         (
             store.write(|w| {
-                record::cover(w, cover_visit, CoverTarget::Category("vegetation".into()), CoverEntry::Percent(5.0)).map(drop)
+                record::cover(
+                    w,
+                    cover_visit,
+                    CoverTarget::Category("vegetation".into()),
+                    CoverEntry::Percent(5.0),
+                )
+                .map(drop)
             }),
             "only with a layered protocol",
         ),
@@ -194,9 +293,14 @@ fn damage_classes_convert_to_midpoints_and_percent_is_kept() {
         })
         .unwrap_err()
         .to_string();
-    assert!(err.contains("damage_record.class_code") && err.contains("\"9\""), "{err}");
+    assert!(
+        err.contains("damage_record.class_code") && err.contains("\"9\""),
+        "{err}"
+    );
 }
 
 fn store_leaf(w: &fieldcage::store::Writer<'_>) -> LeafId {
-    w.conn().query_row("SELECT id FROM tagged_leaf LIMIT 1", [], |r| r.get(0)).unwrap()
+    w.conn()
+        .query_row("SELECT id FROM tagged_leaf LIMIT 1", [], |r| r.get(0))
+        .unwrap()
 }

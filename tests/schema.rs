@@ -12,15 +12,34 @@ fn sqlite_tables_match_the_table_schemas() {
     let tmp = Temp::new();
     let store = tmp.store("a.db");
     for schema in tables::all() {
-        let mut stmt = store.conn().prepare(&format!("PRAGMA table_info({})", schema.name)).unwrap();
+        let mut stmt = store
+            .conn()
+            .prepare(&format!("PRAGMA table_info({})", schema.name))
+            .unwrap();
         let columns: Vec<(String, String, bool, bool)> = stmt
-            .query_map([], |r| Ok((r.get(1)?, r.get(2)?, r.get::<_, i64>(3)? == 1, r.get::<_, i64>(5)? > 0)))
+            .query_map([], |r| {
+                Ok((
+                    r.get(1)?,
+                    r.get(2)?,
+                    r.get::<_, i64>(3)? == 1,
+                    r.get::<_, i64>(5)? > 0,
+                ))
+            })
             .unwrap()
             .collect::<Result<_, _>>()
             .unwrap();
         let (last, columns) = columns.split_last().unwrap();
-        assert_eq!(last.0, "deleted", "{}: the tombstone column comes last", schema.name);
-        assert_eq!(columns.len(), schema.fields.len(), "{}: column count", schema.name);
+        assert_eq!(
+            last.0, "deleted",
+            "{}: the tombstone column comes last",
+            schema.name
+        );
+        assert_eq!(
+            columns.len(),
+            schema.fields.len(),
+            "{}: column count",
+            schema.name
+        );
         for ((name, sql_type, not_null, pk), field) in columns.iter().zip(&schema.fields) {
             assert_eq!(name, &field.name, "{}: column order", schema.name);
             let expected = match field.kind {
@@ -29,7 +48,11 @@ fn sqlite_tables_match_the_table_schemas() {
                 FieldType::String | FieldType::Date | FieldType::Datetime => "TEXT",
             };
             assert_eq!(sql_type, expected, "{}.{}", schema.name, name);
-            assert_eq!(*not_null, field.constraints.required, "{}.{}: NOT NULL vs required", schema.name, name);
+            assert_eq!(
+                *not_null, field.constraints.required,
+                "{}.{}: NOT NULL vs required",
+                schema.name, name
+            );
             assert_eq!(*pk, name == "id", "{}.{}: primary key", schema.name, name);
         }
     }
@@ -40,14 +63,20 @@ fn foreign_keys_in_sqlite_match_the_table_schemas() {
     let tmp = Temp::new();
     let store = tmp.store("a.db");
     for schema in tables::all() {
-        let mut stmt = store.conn().prepare(&format!("PRAGMA foreign_key_list({})", schema.name)).unwrap();
+        let mut stmt = store
+            .conn()
+            .prepare(&format!("PRAGMA foreign_key_list({})", schema.name))
+            .unwrap();
         let mut sql: Vec<(String, String)> = stmt
             .query_map([], |r| Ok((r.get(3)?, r.get(2)?)))
             .unwrap()
             .collect::<Result<_, _>>()
             .unwrap();
-        let mut declared: Vec<(String, String)> =
-            schema.foreign_keys.iter().map(|fk| (fk.field.clone(), fk.resource.clone())).collect();
+        let mut declared: Vec<(String, String)> = schema
+            .foreign_keys
+            .iter()
+            .map(|fk| (fk.field.clone(), fk.resource.clone()))
+            .collect();
         sql.sort();
         declared.sort();
         assert_eq!(sql, declared, "{}", schema.name);
@@ -59,8 +88,16 @@ fn tables_are_listed_after_every_table_they_reference() {
     let names: Vec<&str> = tables::all().iter().map(|t| t.name.as_str()).collect();
     for (i, schema) in tables::all().iter().enumerate() {
         for fk in &schema.foreign_keys {
-            let j = names.iter().position(|n| *n == fk.resource).expect("referenced table exists");
-            assert!(j < i || fk.resource == schema.name, "{} comes before {}", schema.name, fk.resource);
+            let j = names
+                .iter()
+                .position(|n| *n == fk.resource)
+                .expect("referenced table exists");
+            assert!(
+                j < i || fk.resource == schema.name,
+                "{} comes before {}",
+                schema.name,
+                fk.resource
+            );
         }
     }
 }
@@ -112,10 +149,19 @@ fn schema_files_on_disk_are_the_embedded_ones() {
     let dir = std::path::Path::new(env!("CARGO_MANIFEST_DIR")).join("schemas/tables");
     let mut on_disk: Vec<String> = std::fs::read_dir(&dir)
         .unwrap()
-        .map(|e| e.unwrap().file_name().to_string_lossy().trim_end_matches(".json").to_owned())
+        .map(|e| {
+            e.unwrap()
+                .file_name()
+                .to_string_lossy()
+                .trim_end_matches(".json")
+                .to_owned()
+        })
         .collect();
     on_disk.sort();
     let mut embedded: Vec<String> = tables::all().iter().map(|t| t.name.clone()).collect();
     embedded.sort();
-    assert_eq!(on_disk, embedded, "every schema file is embedded, and only those");
+    assert_eq!(
+        on_disk, embedded,
+        "every schema file is embedded, and only those"
+    );
 }

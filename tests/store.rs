@@ -11,9 +11,15 @@ fn durable_settings_are_in_force_after_open() {
     let tmp = Temp::new();
     let store = tmp.store("a.db");
     let conn = store.conn();
-    let mode: String = conn.query_row("PRAGMA journal_mode", [], |r| r.get(0)).unwrap();
-    let sync: i64 = conn.query_row("PRAGMA synchronous", [], |r| r.get(0)).unwrap();
-    let fk: i64 = conn.query_row("PRAGMA foreign_keys", [], |r| r.get(0)).unwrap();
+    let mode: String = conn
+        .query_row("PRAGMA journal_mode", [], |r| r.get(0))
+        .unwrap();
+    let sync: i64 = conn
+        .query_row("PRAGMA synchronous", [], |r| r.get(0))
+        .unwrap();
+    let fk: i64 = conn
+        .query_row("PRAGMA foreign_keys", [], |r| r.get(0))
+        .unwrap();
     // WAL + synchronous=FULL (2) + foreign keys on: the durability rules of DESIGN.md.
     assert_eq!((mode.as_str(), sync, fk), ("wal", 2, 1));
 }
@@ -22,10 +28,17 @@ fn durable_settings_are_in_force_after_open() {
 fn migrations_bring_an_empty_file_to_the_latest_version() {
     let tmp = Temp::new();
     let store = tmp.store("a.db");
-    assert_eq!(migrations::current_version(store.conn()).unwrap(), migrations::latest_version());
+    assert_eq!(
+        migrations::current_version(store.conn()).unwrap(),
+        migrations::latest_version()
+    );
     let tables: i64 = store
         .conn()
-        .query_row("SELECT count(*) FROM sqlite_schema WHERE type = 'table'", [], |r| r.get(0))
+        .query_row(
+            "SELECT count(*) FROM sqlite_schema WHERE type = 'table'",
+            [],
+            |r| r.get(0),
+        )
         .unwrap();
     // 20 data tables (schemas/tables) + local_device + change_log.
     assert_eq!(tables, fieldcage::tables::all().len() as i64 + 2);
@@ -41,10 +54,15 @@ fn every_earlier_version_migrates_to_the_latest() {
             for (_, sql) in &MIGRATIONS[..from] {
                 conn.execute_batch(sql).unwrap();
             }
-            conn.execute_batch(&format!("PRAGMA user_version = {from}")).unwrap();
+            conn.execute_batch(&format!("PRAGMA user_version = {from}"))
+                .unwrap();
         }
         let store = Store::open(&path).unwrap();
-        assert_eq!(migrations::current_version(store.conn()).unwrap(), migrations::latest_version(), "from {from}");
+        assert_eq!(
+            migrations::current_version(store.conn()).unwrap(),
+            migrations::latest_version(),
+            "from {from}"
+        );
     }
 }
 
@@ -55,7 +73,11 @@ fn reopening_is_a_no_op() {
     let device = Store::open(&path).unwrap().device_id().to_owned();
     let before = crate::util::snapshot(&Store::open(&path).unwrap());
     let mut conn = Connection::open(&path).unwrap();
-    assert_eq!(migrations::migrate(&mut conn).unwrap(), 0, "nothing left to apply");
+    assert_eq!(
+        migrations::migrate(&mut conn).unwrap(),
+        0,
+        "nothing left to apply"
+    );
     drop(conn);
     let store = Store::open(&path).unwrap();
     assert_eq!(store.device_id(), device, "the device id is made once");
@@ -68,7 +90,10 @@ fn a_database_from_a_newer_release_is_refused() {
     let path = tmp.path("new.db");
     Connection::open(&path)
         .unwrap()
-        .execute_batch(&format!("PRAGMA user_version = {}", migrations::latest_version() + 1))
+        .execute_batch(&format!(
+            "PRAGMA user_version = {}",
+            migrations::latest_version() + 1
+        ))
         .unwrap();
     let err = Store::open(&path).unwrap_err().to_string();
     assert!(err.contains("newer than this fieldcage"), "{err}");
@@ -85,9 +110,19 @@ fn a_failing_migration_leaves_the_file_untouched() {
         .unwrap();
     assert!(Store::open(&path).is_err());
     let conn = Connection::open(&path).unwrap();
-    let version: i64 = conn.query_row("PRAGMA user_version", [], |r| r.get(0)).unwrap();
-    let tables: i64 = conn
-        .query_row("SELECT count(*) FROM sqlite_schema WHERE type = 'table'", [], |r| r.get(0))
+    let version: i64 = conn
+        .query_row("PRAGMA user_version", [], |r| r.get(0))
         .unwrap();
-    assert_eq!((version, tables), (0, 1), "the migration rolled back as a whole");
+    let tables: i64 = conn
+        .query_row(
+            "SELECT count(*) FROM sqlite_schema WHERE type = 'table'",
+            [],
+            |r| r.get(0),
+        )
+        .unwrap();
+    assert_eq!(
+        (version, tables),
+        (0, 1),
+        "the migration rolled back as a whole"
+    );
 }

@@ -2,6 +2,8 @@
 //! fixture builder (`util`), which builds the demo season with the same code
 //! as `fieldcage demo`.
 
+#![allow(clippy::unwrap_used)] // a failed unwrap is a failed test
+
 mod util;
 
 mod changelog;

@@ -68,10 +68,16 @@ pub fn snapshot(store: &Store) -> String {
     let mut out = String::new();
     for name in names {
         out.push_str(&format!("== {name}\n"));
-        let mut stmt = conn.prepare(&format!("SELECT * FROM {name} ORDER BY 1, 2")).unwrap();
+        let mut stmt = conn
+            .prepare(&format!("SELECT * FROM {name} ORDER BY 1, 2"))
+            .unwrap();
         let n = stmt.column_count();
         let rows = stmt
-            .query_map([], |r| (0..n).map(|i| r.get::<_, Value>(i)).collect::<Result<Vec<_>, _>>())
+            .query_map([], |r| {
+                (0..n)
+                    .map(|i| r.get::<_, Value>(i))
+                    .collect::<Result<Vec<_>, _>>()
+            })
             .unwrap();
         for row in rows {
             out.push_str(&format!("{:?}\n", row.unwrap()));
@@ -84,7 +90,11 @@ pub fn snapshot(store: &Store) -> String {
 pub fn count(store: &Store, table: &str) -> i64 {
     store
         .conn()
-        .query_row(&format!("SELECT count(*) FROM {table} WHERE deleted = 0"), [], |r| r.get(0))
+        .query_row(
+            &format!("SELECT count(*) FROM {table} WHERE deleted = 0"),
+            [],
+            |r| r.get(0),
+        )
         .unwrap()
 }
 
@@ -94,10 +104,17 @@ pub fn data_snapshot(store: &Store) -> String {
     let mut out = String::new();
     for schema in fieldcage::tables::all() {
         out.push_str(&format!("== {}\n", schema.name));
-        let mut stmt = store.conn().prepare(&format!("SELECT * FROM {} ORDER BY id", schema.name)).unwrap();
+        let mut stmt = store
+            .conn()
+            .prepare(&format!("SELECT * FROM {} ORDER BY id", schema.name))
+            .unwrap();
         let n = stmt.column_count();
         let rows = stmt
-            .query_map([], |r| (0..n).map(|i| r.get::<_, Value>(i)).collect::<Result<Vec<_>, _>>())
+            .query_map([], |r| {
+                (0..n)
+                    .map(|i| r.get::<_, Value>(i))
+                    .collect::<Result<Vec<_>, _>>()
+            })
             .unwrap();
         for row in rows {
             out.push_str(&format!("{:?}\n", row.unwrap()));

@@ -48,8 +48,13 @@ pub fn start_visit(w: &mut Writer<'_>, v: NewVisit) -> Result<Visit> {
 
 /// Mark a visit complete.
 pub fn complete_visit(w: &mut Writer<'_>, visit: VisitId) -> Result<()> {
-    let schema = crate::tables::get("visit").ok_or_else(|| Error::State("no visit table".into()))?;
-    w.update_fields(schema, &visit.to_string(), &[("completed", rusqlite::types::Value::Integer(1))])?;
+    let schema =
+        crate::tables::get("visit").ok_or_else(|| Error::State("no visit table".into()))?;
+    w.update_fields(
+        schema,
+        &visit.to_string(),
+        &[("completed", rusqlite::types::Value::Integer(1))],
+    )?;
     Ok(())
 }
 
@@ -62,7 +67,12 @@ pub fn stock(
     count: i64,
     stage: Option<String>,
 ) -> Result<StockingEvent> {
-    expect_visit(w, visit, &[VisitKind::Stocking, VisitKind::Census], "stocking_event")?;
+    expect_visit(
+        w,
+        visit,
+        &[VisitKind::Stocking, VisitKind::Census],
+        "stocking_event",
+    )?;
     expect_animal(w, taxon, "stocking_event")?;
     let event = StockingEvent {
         id: StockingEventId(w.new_id()),
@@ -127,19 +137,42 @@ pub enum CoverEntry {
 /// Record the cover of one taxon or category at a cover visit; the percent
 /// is derived by the protocol (class midpoint; 100 × hits / pins, after
 /// Elzinga, Salzer & Willoughby 1998).
-pub fn cover(w: &mut Writer<'_>, visit: VisitId, target: CoverTarget, entry: CoverEntry) -> Result<CoverRecord> {
+pub fn cover(
+    w: &mut Writer<'_>,
+    visit: VisitId,
+    target: CoverTarget,
+    entry: CoverEntry,
+) -> Result<CoverRecord> {
     expect_visit(w, visit, &[VisitKind::Cover], "cover_record")?;
     let protocol = cover_protocol(w)?;
     let (taxon_id, category) = match target {
         CoverTarget::Taxon(t) => {
             let role: Option<String> = w
                 .conn()
-                .query_row("SELECT role FROM taxon WHERE id = ?1 AND deleted = 0", [t], |r| r.get(0))
+                .query_row(
+                    "SELECT role FROM taxon WHERE id = ?1 AND deleted = 0",
+                    [t],
+                    |r| r.get(0),
+                )
                 .optional()?;
             match role.as_deref() {
                 Some("plant") => {}
-                Some(other) => return Err(Error::invalid("cover_record", "taxon_id", t, format!("is a {other}, not a plant"))),
-                None => return Err(Error::invalid("cover_record", "taxon_id", t, "refers to no taxon row")),
+                Some(other) => {
+                    return Err(Error::invalid(
+                        "cover_record",
+                        "taxon_id",
+                        t,
+                        format!("is a {other}, not a plant"),
+                    ));
+                }
+                None => {
+                    return Err(Error::invalid(
+                        "cover_record",
+                        "taxon_id",
+                        t,
+                        "refers to no taxon row",
+                    ));
+                }
             }
             (Some(t), None)
         }
@@ -156,7 +189,10 @@ pub fn cover(w: &mut Writer<'_>, visit: VisitId, target: CoverTarget, entry: Cov
                     "cover_record",
                     "category",
                     &code,
-                    format!("is not a ground category of protocol {} (nor \"{VEGETATION_CATEGORY}\")", protocol.code),
+                    format!(
+                        "is not a ground category of protocol {} (nor \"{VEGETATION_CATEGORY}\")",
+                        protocol.code
+                    ),
                 ));
             }
             if code == VEGETATION_CATEGORY && !protocol.layered {
@@ -188,7 +224,9 @@ pub fn cover(w: &mut Writer<'_>, visit: VisitId, target: CoverTarget, entry: Cov
             row.cover_pct = Some(x);
         }
         (CoverMethod::Class, CoverEntry::Class(code)) => {
-            let scale = protocol.scale_id.ok_or_else(|| Error::State("the class protocol has no scale".into()))?;
+            let scale = protocol
+                .scale_id
+                .ok_or_else(|| Error::State("the class protocol has no scale".into()))?;
             row.cover_pct = Some(class_midpoint(w, scale, &code, "cover_record")?);
             row.class_code = Some(code);
         }
@@ -244,9 +282,15 @@ pub fn tag_leaf(
 }
 
 /// Record that a tagged leaf is gone (lost) or gone and replaced.
-pub fn set_leaf_fate(w: &mut Writer<'_>, leaf: LeafId, fate: LeafFate, on: chrono::NaiveDate) -> Result<()> {
+pub fn set_leaf_fate(
+    w: &mut Writer<'_>,
+    leaf: LeafId,
+    fate: LeafFate,
+    on: chrono::NaiveDate,
+) -> Result<()> {
     use rusqlite::types::Value;
-    let schema = crate::tables::get("tagged_leaf").ok_or_else(|| Error::State("no tagged_leaf table".into()))?;
+    let schema = crate::tables::get("tagged_leaf")
+        .ok_or_else(|| Error::State("no tagged_leaf table".into()))?;
     w.update_fields(
         schema,
         &leaf.to_string(),
@@ -268,13 +312,20 @@ pub enum DamageEntry {
 }
 
 /// Score damage on a tagged leaf at a damage visit.
-pub fn damage(w: &mut Writer<'_>, visit: VisitId, leaf: LeafId, entry: DamageEntry) -> Result<DamageRecord> {
+pub fn damage(
+    w: &mut Writer<'_>,
+    visit: VisitId,
+    leaf: LeafId,
+    entry: DamageEntry,
+) -> Result<DamageRecord> {
     expect_visit(w, visit, &[VisitKind::Damage], "damage_record")?;
     let (method, scale): (String, Option<ScaleId>) = w
         .conn()
-        .query_row("SELECT method, scale_id FROM damage_protocol WHERE deleted = 0 LIMIT 1", [], |r| {
-            Ok((r.get(0)?, r.get(1)?))
-        })
+        .query_row(
+            "SELECT method, scale_id FROM damage_protocol WHERE deleted = 0 LIMIT 1",
+            [],
+            |r| Ok((r.get(0)?, r.get(1)?)),
+        )
         .optional()?
         .ok_or_else(|| Error::State("the experiment has no damage protocol".into()))?;
     let mut row = DamageRecord {
@@ -310,13 +361,21 @@ pub fn damage(w: &mut Writer<'_>, visit: VisitId, leaf: LeafId, entry: DamageEnt
 
 /// The experiment's cover protocol.
 pub fn cover_protocol(w: &Writer<'_>) -> Result<CoverProtocol> {
-    let schema = crate::tables::get("cover_protocol").ok_or_else(|| Error::State("no cover_protocol table".into()))?;
+    let schema = crate::tables::get("cover_protocol")
+        .ok_or_else(|| Error::State("no cover_protocol table".into()))?;
     let values = w
         .conn()
         .query_row(
-            &format!("SELECT {} FROM cover_protocol WHERE deleted = 0 ORDER BY id LIMIT 1", schema.column_list()),
+            &format!(
+                "SELECT {} FROM cover_protocol WHERE deleted = 0 ORDER BY id LIMIT 1",
+                schema.column_list()
+            ),
             [],
-            |r| (0..schema.fields.len()).map(|i| r.get(i)).collect::<rusqlite::Result<Vec<_>>>(),
+            |r| {
+                (0..schema.fields.len())
+                    .map(|i| r.get(i))
+                    .collect::<rusqlite::Result<Vec<_>>>()
+            },
         )
         .optional()?
         .ok_or_else(|| Error::State("the experiment has no cover protocol".into()))?;
@@ -345,10 +404,19 @@ fn class_midpoint(w: &Writer<'_>, scale: ScaleId, code: &str, table: &str) -> Re
 fn expect_visit(w: &Writer<'_>, visit: VisitId, kinds: &[VisitKind], table: &str) -> Result<()> {
     let kind: Option<String> = w
         .conn()
-        .query_row("SELECT kind FROM visit WHERE id = ?1 AND deleted = 0", [visit], |r| r.get(0))
+        .query_row(
+            "SELECT kind FROM visit WHERE id = ?1 AND deleted = 0",
+            [visit],
+            |r| r.get(0),
+        )
         .optional()?;
     let Some(kind) = kind else {
-        return Err(Error::invalid(table, "visit_id", visit, "refers to no visit row"));
+        return Err(Error::invalid(
+            table,
+            "visit_id",
+            visit,
+            "refers to no visit row",
+        ));
     };
     if kinds.iter().any(|k| k.as_str() == kind) {
         Ok(())
@@ -358,7 +426,10 @@ fn expect_visit(w: &Writer<'_>, visit: VisitId, kinds: &[VisitKind], table: &str
             table,
             "visit_id",
             visit,
-            format!("is a {kind} visit; this entry belongs to a {} visit", wanted.join(" or ")),
+            format!(
+                "is a {kind} visit; this entry belongs to a {} visit",
+                wanted.join(" or ")
+            ),
         ))
     }
 }
@@ -366,11 +437,25 @@ fn expect_visit(w: &Writer<'_>, visit: VisitId, kinds: &[VisitKind], table: &str
 fn expect_animal(w: &Writer<'_>, taxon: TaxonId, table: &str) -> Result<()> {
     let role: Option<String> = w
         .conn()
-        .query_row("SELECT role FROM taxon WHERE id = ?1 AND deleted = 0", [taxon], |r| r.get(0))
+        .query_row(
+            "SELECT role FROM taxon WHERE id = ?1 AND deleted = 0",
+            [taxon],
+            |r| r.get(0),
+        )
         .optional()?;
     match role.as_deref() {
         Some("herbivore" | "predator") => Ok(()),
-        Some(other) => Err(Error::invalid(table, "taxon_id", taxon, format!("is a {other}; only animals are counted"))),
-        None => Err(Error::invalid(table, "taxon_id", taxon, "refers to no taxon row")),
+        Some(other) => Err(Error::invalid(
+            table,
+            "taxon_id",
+            taxon,
+            format!("is a {other}; only animals are counted"),
+        )),
+        None => Err(Error::invalid(
+            table,
+            "taxon_id",
+            taxon,
+            "refers to no taxon row",
+        )),
     }
 }

@@ -11,7 +11,9 @@ use std::path::{Path, PathBuf};
 use chrono::NaiveDate;
 use serde::Deserialize;
 
-use crate::model::{CoverMethod, DamageMethod, HitRule, PlantGroup, PredatorMode, Role, ScaleKind, VisitKind};
+use crate::model::{
+    CoverMethod, DamageMethod, HitRule, PlantGroup, PredatorMode, Role, ScaleKind, VisitKind,
+};
 use crate::{Error, Result};
 
 /// A checked experiment definition.
@@ -350,33 +352,57 @@ pub fn parse(path: &Path, text: &str) -> Result<Definition> {
     })?;
 
     let start = toml_date(&raw.experiment.start_date).ok_or_else(|| {
-        err("experiment.start_date", format!("{} is not a date YYYY-MM-DD", raw.experiment.start_date))
+        err(
+            "experiment.start_date",
+            format!("{} is not a date YYYY-MM-DD", raw.experiment.start_date),
+        )
     })?;
     if let Some(end) = &raw.experiment.end_date {
-        let end_date = toml_date(end)
-            .ok_or_else(|| err("experiment.end_date", format!("{end} is not a date YYYY-MM-DD")))?;
+        let end_date = toml_date(end).ok_or_else(|| {
+            err(
+                "experiment.end_date",
+                format!("{end} is not a date YYYY-MM-DD"),
+            )
+        })?;
         if end_date < start {
-            return Err(err("experiment.end_date", format!("{end_date} is before start_date {start}")));
+            return Err(err(
+                "experiment.end_date",
+                format!("{end_date} is before start_date {start}"),
+            ));
         }
     }
 
     unique_codes(raw.site.iter().map(|s| s.code.as_str()), "site").map_err(|(l, r)| err(&l, r))?;
-    unique_codes(raw.block.iter().map(|b| b.code.as_str()), "block").map_err(|(l, r)| err(&l, r))?;
-    unique_codes(raw.treatment.iter().map(|t| t.code.as_str()), "treatment").map_err(|(l, r)| err(&l, r))?;
-    unique_codes(raw.taxon.iter().map(|t| t.code.as_str()), "taxon").map_err(|(l, r)| err(&l, r))?;
-    unique_codes(raw.block.iter().flat_map(|b| b.enclosures.iter().map(String::as_str)), "enclosure")
+    unique_codes(raw.block.iter().map(|b| b.code.as_str()), "block")
         .map_err(|(l, r)| err(&l, r))?;
+    unique_codes(raw.treatment.iter().map(|t| t.code.as_str()), "treatment")
+        .map_err(|(l, r)| err(&l, r))?;
+    unique_codes(raw.taxon.iter().map(|t| t.code.as_str()), "taxon")
+        .map_err(|(l, r)| err(&l, r))?;
+    unique_codes(
+        raw.block
+            .iter()
+            .flat_map(|b| b.enclosures.iter().map(String::as_str)),
+        "enclosure",
+    )
+    .map_err(|(l, r)| err(&l, r))?;
     if raw.site.is_empty() {
         return Err(err("site", "at least one [[site]] is needed".to_owned()));
     }
     if raw.treatment.is_empty() {
-        return Err(err("treatment", "at least one [[treatment]] is needed".to_owned()));
+        return Err(err(
+            "treatment",
+            "at least one [[treatment]] is needed".to_owned(),
+        ));
     }
     let site_codes: BTreeSet<&str> = raw.site.iter().map(|s| s.code.as_str()).collect();
     for b in &raw.block {
         match &b.site {
             Some(site) if !site_codes.contains(site.as_str()) => {
-                return Err(err(&format!("block[{}].site", b.code), format!("unknown site code {site:?}")));
+                return Err(err(
+                    &format!("block[{}].site", b.code),
+                    format!("unknown site code {site:?}"),
+                ));
             }
             None if raw.site.len() > 1 => {
                 return Err(err(
@@ -387,17 +413,30 @@ pub fn parse(path: &Path, text: &str) -> Result<Definition> {
             _ => {}
         }
         if b.enclosures.is_empty() {
-            return Err(err(&format!("block[{}].enclosures", b.code), "a block needs enclosures".to_owned()));
+            return Err(err(
+                &format!("block[{}].enclosures", b.code),
+                "a block needs enclosures".to_owned(),
+            ));
         }
     }
-    let labels: BTreeSet<&str> = raw.block.iter().flat_map(|b| b.enclosures.iter().map(String::as_str)).collect();
+    let labels: BTreeSet<&str> = raw
+        .block
+        .iter()
+        .flat_map(|b| b.enclosures.iter().map(String::as_str))
+        .collect();
     let mut enclosures = HashMap::new();
     for e in raw.enclosure {
         if !labels.contains(e.label.as_str()) {
-            return Err(err(&format!("enclosure[{}]", e.label), "is not listed in any block".to_owned()));
+            return Err(err(
+                &format!("enclosure[{}]", e.label),
+                "is not listed in any block".to_owned(),
+            ));
         }
         if enclosures.contains_key(&e.label) {
-            return Err(err(&format!("enclosure[{}]", e.label), "is given twice".to_owned()));
+            return Err(err(
+                &format!("enclosure[{}]", e.label),
+                "is given twice".to_owned(),
+            ));
         }
         enclosures.insert(e.label.clone(), e);
     }
@@ -416,7 +455,10 @@ pub fn parse(path: &Path, text: &str) -> Result<Definition> {
     for t in &raw.taxon {
         match (t.role, t.plant_group) {
             (Role::Plant, None) => {
-                return Err(err(&format!("taxon[{}].plant_group", t.code), "a plant needs a plant_group".to_owned()));
+                return Err(err(
+                    &format!("taxon[{}].plant_group", t.code),
+                    "a plant needs a plant_group".to_owned(),
+                ));
             }
             (Role::Herbivore | Role::Predator, Some(g)) => {
                 return Err(err(
@@ -431,32 +473,50 @@ pub fn parse(path: &Path, text: &str) -> Result<Definition> {
         let mut seen = BTreeSet::new();
         for (i, s) in t.stock.iter().enumerate() {
             let loc = format!("treatment[{}].stock[{i}]", t.code);
-            let taxon = taxa
-                .get(s.taxon.as_str())
-                .ok_or_else(|| err(&format!("{loc}.taxon"), format!("unknown taxon code {:?}", s.taxon)))?;
+            let taxon = taxa.get(s.taxon.as_str()).ok_or_else(|| {
+                err(
+                    &format!("{loc}.taxon"),
+                    format!("unknown taxon code {:?}", s.taxon),
+                )
+            })?;
             if !seen.insert(s.taxon.as_str()) {
-                return Err(err(&format!("{loc}.taxon"), format!("{} is stocked twice", s.taxon)));
+                return Err(err(
+                    &format!("{loc}.taxon"),
+                    format!("{} is stocked twice", s.taxon),
+                ));
             }
             match taxon.role {
                 Role::Plant => {
-                    return Err(err(&format!("{loc}.taxon"), format!("{} is a plant; only animals are stocked", s.taxon)));
+                    return Err(err(
+                        &format!("{loc}.taxon"),
+                        format!("{} is a plant; only animals are stocked", s.taxon),
+                    ));
                 }
                 Role::Herbivore if !t.herbivores => {
                     return Err(err(
                         &format!("{loc}.taxon"),
-                        format!("{} is a herbivore but the treatment has herbivores = false", s.taxon),
+                        format!(
+                            "{} is a herbivore but the treatment has herbivores = false",
+                            s.taxon
+                        ),
                     ));
                 }
                 Role::Predator if t.predator_mode == PredatorMode::None => {
                     return Err(err(
                         &format!("{loc}.taxon"),
-                        format!("{} is a predator but the treatment has predator_mode = \"none\"", s.taxon),
+                        format!(
+                            "{} is a predator but the treatment has predator_mode = \"none\"",
+                            s.taxon
+                        ),
                     ));
                 }
                 _ => {}
             }
             if s.count < 0 {
-                return Err(err(&format!("{loc}.count"), format!("{} is negative", s.count)));
+                return Err(err(
+                    &format!("{loc}.count"),
+                    format!("{} is negative", s.count),
+                ));
             }
             if let Some(r) = s.restock_below
                 && !(0..=s.count).contains(&r)
@@ -472,7 +532,10 @@ pub fn parse(path: &Path, text: &str) -> Result<Definition> {
     let mut scales = builtin_scales();
     for s in raw.scale {
         if scales.iter().any(|b| b.code == s.code) {
-            return Err(err(&format!("scale[{}]", s.code), "a scale with this code is built in; choose another code".to_owned()));
+            return Err(err(
+                &format!("scale[{}]", s.code),
+                "a scale with this code is built in; choose another code".to_owned(),
+            ));
         }
         scales.push(s);
     }
@@ -485,7 +548,10 @@ pub fn parse(path: &Path, text: &str) -> Result<Definition> {
         };
         match scales.iter().find(|s| &s.code == code) {
             None => Err(err(loc, format!("unknown scale {code:?}"))),
-            Some(s) if s.kind != kind => Err(err(loc, format!("scale {code:?} is a {} scale, not {kind}", s.kind))),
+            Some(s) if s.kind != kind => Err(err(
+                loc,
+                format!("scale {code:?} is a {} scale, not {kind}", s.kind),
+            )),
             Some(_) => Ok(()),
         }
     };
@@ -494,41 +560,73 @@ pub fn parse(path: &Path, text: &str) -> Result<Definition> {
         CoverMethod::Class => find_scale(&cover.scale, ScaleKind::Cover, "cover.scale")?,
         CoverMethod::Pins => {
             if !matches!(cover.pins_per_frame, Some(n) if n >= 1) {
-                return Err(err("cover.pins_per_frame", "the pins method needs pins_per_frame of at least 1".to_owned()));
+                return Err(err(
+                    "cover.pins_per_frame",
+                    "the pins method needs pins_per_frame of at least 1".to_owned(),
+                ));
             }
             if cover.hit_rule.is_none() {
-                return Err(err("cover.hit_rule", "the pins method needs hit_rule = \"first\" or \"any\"".to_owned()));
+                return Err(err(
+                    "cover.hit_rule",
+                    "the pins method needs hit_rule = \"first\" or \"any\"".to_owned(),
+                ));
             }
         }
         CoverMethod::Percent => {}
     }
     if cover.method != CoverMethod::Class && cover.scale.is_some() {
-        return Err(err("cover.scale", format!("a scale is only used by the class method, not {}", cover.method)));
+        return Err(err(
+            "cover.scale",
+            format!(
+                "a scale is only used by the class method, not {}",
+                cover.method
+            ),
+        ));
     }
     if let Some(t) = cover.tolerance_pct
         && !(0.0..=100.0).contains(&t)
     {
-        return Err(err("cover.tolerance_pct", format!("{t} must be between 0 and 100")));
+        return Err(err(
+            "cover.tolerance_pct",
+            format!("{t} must be between 0 and 100"),
+        ));
     }
-    unique_codes(cover.ground.iter().map(|g| g.code.as_str()), "cover.ground").map_err(|(l, r)| err(&l, r))?;
-    if cover.ground.iter().any(|g| g.code == crate::model::VEGETATION_CATEGORY) {
-        return Err(err("cover.ground", "\"vegetation\" is reserved for overall vegetation cover".to_owned()));
+    unique_codes(cover.ground.iter().map(|g| g.code.as_str()), "cover.ground")
+        .map_err(|(l, r)| err(&l, r))?;
+    if cover
+        .ground
+        .iter()
+        .any(|g| g.code == crate::model::VEGETATION_CATEGORY)
+    {
+        return Err(err(
+            "cover.ground",
+            "\"vegetation\" is reserved for overall vegetation cover".to_owned(),
+        ));
     }
     let damage = raw.damage;
     match damage.method {
         DamageMethod::Class => find_scale(&damage.scale, ScaleKind::Damage, "damage.scale")?,
         DamageMethod::Percent if damage.scale.is_some() => {
-            return Err(err("damage.scale", "a scale is only used by the class method".to_owned()));
+            return Err(err(
+                "damage.scale",
+                "a scale is only used by the class method".to_owned(),
+            ));
         }
         DamageMethod::Percent => {}
     }
     if damage.leaves_per_enclosure < 1 {
-        return Err(err("damage.leaves_per_enclosure", format!("{} must be at least 1", damage.leaves_per_enclosure)));
+        return Err(err(
+            "damage.leaves_per_enclosure",
+            format!("{} must be at least 1", damage.leaves_per_enclosure),
+        ));
     }
 
     let sched = raw.schedule;
     if sched.grace_days < 0 {
-        return Err(err("schedule.grace_days", format!("{} is negative", sched.grace_days)));
+        return Err(err(
+            "schedule.grace_days",
+            format!("{} is negative", sched.grace_days),
+        ));
     }
     let mut schedule = Vec::new();
     for (kind, days) in [
@@ -543,7 +641,10 @@ pub fn parse(path: &Path, text: &str) -> Result<Definition> {
             Some(RawDays::List(d)) => d.clone(),
             Some(RawDays::Series { every, from, to }) => {
                 if *every < 1 || from > to {
-                    return Err(err(&loc, format!("every = {every}, from = {from}, to = {to} gives no days")));
+                    return Err(err(
+                        &loc,
+                        format!("every = {every}, from = {from}, to = {to} gives no days"),
+                    ));
                 }
                 (*from..=*to).step_by(*every as usize).collect()
             }
@@ -591,16 +692,24 @@ impl Definition {
 
 fn toml_date(d: &toml::value::Datetime) -> Option<NaiveDate> {
     match (d.date, d.time, d.offset) {
-        (Some(date), None, None) => NaiveDate::from_ymd_opt(date.year.into(), date.month.into(), date.day.into()),
+        (Some(date), None, None) => {
+            NaiveDate::from_ymd_opt(date.year.into(), date.month.into(), date.day.into())
+        }
         _ => None,
     }
 }
 
-fn unique_codes<'a>(codes: impl Iterator<Item = &'a str>, what: &str) -> Result<(), (String, String)> {
+fn unique_codes<'a>(
+    codes: impl Iterator<Item = &'a str>,
+    what: &str,
+) -> Result<(), (String, String)> {
     let mut seen = BTreeSet::new();
     for c in codes {
         if !seen.insert(c) {
-            return Err((format!("{what}[{c}]"), format!("the code {c:?} is used twice")));
+            return Err((
+                format!("{what}[{c}]"),
+                format!("the code {c:?} is used twice"),
+            ));
         }
     }
     Ok(())
@@ -611,19 +720,31 @@ fn check_scale(s: &RawScale) -> Result<(), (String, String)> {
     if s.classes.is_empty() {
         return Err((loc, "a scale needs classes".to_owned()));
     }
-    unique_codes(s.classes.iter().map(|c| c.code.as_str()), &format!("{loc}.classes"))?;
+    unique_codes(
+        s.classes.iter().map(|c| c.code.as_str()),
+        &format!("{loc}.classes"),
+    )?;
     for c in &s.classes {
         let cl = format!("{loc}.classes[{}]", c.code);
         let in_range = |x: f64| (0.0..=100.0).contains(&x);
         if !in_range(c.midpoint) {
-            return Err((format!("{cl}.midpoint"), format!("{} must be between 0 and 100", c.midpoint)));
+            return Err((
+                format!("{cl}.midpoint"),
+                format!("{} must be between 0 and 100", c.midpoint),
+            ));
         }
         if let (Some(lo), Some(hi)) = (c.lower, c.upper) {
             if !in_range(lo) || !in_range(hi) || lo > hi {
-                return Err((cl, format!("range {lo}-{hi} is not within 0-100 from low to high")));
+                return Err((
+                    cl,
+                    format!("range {lo}-{hi} is not within 0-100 from low to high"),
+                ));
             }
             if c.midpoint < lo || c.midpoint > hi {
-                return Err((format!("{cl}.midpoint"), format!("{} lies outside the class range {lo}-{hi}", c.midpoint)));
+                return Err((
+                    format!("{cl}.midpoint"),
+                    format!("{} lies outside the class range {lo}-{hi}", c.midpoint),
+                ));
             }
         }
     }

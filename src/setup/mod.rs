@@ -34,22 +34,31 @@ pub fn fresh_seed() -> u64 {
 /// Create the experiment of `def` in an empty database and randomise the
 /// treatments (seeded). Refused if the database already holds an experiment.
 pub fn init(store: &mut Store, def: &Definition, seed: u64) -> Result<InitSummary> {
-    let seed_i64 = i64::try_from(seed)
-        .map_err(|_| Error::invalid("init", "seed", seed, format!("must be at most {}", i64::MAX)))?;
-    let sizes: Vec<usize> = def.blocks.iter().map(|b| b.enclosures.len()).collect();
-    let layout = randomise::rcbd(&sizes, def.treatments.len(), seed).map_err(|m| Error::Definition {
-        path: def.path.clone(),
-        location: format!("block[{}].enclosures", def.blocks[m.block].code),
-        reason: format!(
-            "the block has {} enclosures but there are {} treatments; a randomised complete \
-             block design needs each block to hold each treatment exactly once",
-            m.size, m.treatments
-        ),
+    let seed_i64 = i64::try_from(seed).map_err(|_| {
+        Error::invalid(
+            "init",
+            "seed",
+            seed,
+            format!("must be at most {}", i64::MAX),
+        )
     })?;
+    let sizes: Vec<usize> = def.blocks.iter().map(|b| b.enclosures.len()).collect();
+    let layout =
+        randomise::rcbd(&sizes, def.treatments.len(), seed).map_err(|m| Error::Definition {
+            path: def.path.clone(),
+            location: format!("block[{}].enclosures", def.blocks[m.block].code),
+            reason: format!(
+                "the block has {} enclosures but there are {} treatments; a randomised complete \
+             block design needs each block to hold each treatment exactly once",
+                m.size, m.treatments
+            ),
+        })?;
     store.write(|w| {
-        let existing: i64 = w
-            .conn()
-            .query_row("SELECT count(*) FROM experiment WHERE deleted = 0", [], |r| r.get(0))?;
+        let existing: i64 = w.conn().query_row(
+            "SELECT count(*) FROM experiment WHERE deleted = 0",
+            [],
+            |r| r.get(0),
+        )?;
         if existing > 0 {
             return Err(Error::State(
                 "this database already holds an experiment; use a new database file".to_owned(),
@@ -146,7 +155,10 @@ pub fn init(store: &mut Store, def: &Definition, seed: u64) -> Result<InitSummar
                     id: EnclosureId(w.new_id()),
                     block_id: block.id,
                     label: label.clone(),
-                    area_m2: over.and_then(|e| e.area_m2).or(d.area_m2).unwrap_or_default(),
+                    area_m2: over
+                        .and_then(|e| e.area_m2)
+                        .or(d.area_m2)
+                        .unwrap_or_default(),
                     height_m: over.and_then(|e| e.height_m).or(d.height_m),
                     mesh_mm: over.and_then(|e| e.mesh_mm).or(d.mesh_mm),
                     x_m: over.and_then(|e| e.x_m),
@@ -278,8 +290,12 @@ pub fn layout(store: &Store) -> Result<Vec<LayoutCell>> {
         Ok(LayoutCell {
             block: r.get(0)?,
             enclosure: r.get(1)?,
-            treatment: r.get::<_, Option<String>>(2)?.unwrap_or_else(|| "-".to_owned()),
-            treatment_name: r.get::<_, Option<String>>(3)?.unwrap_or_else(|| "(unassigned)".to_owned()),
+            treatment: r
+                .get::<_, Option<String>>(2)?
+                .unwrap_or_else(|| "-".to_owned()),
+            treatment_name: r
+                .get::<_, Option<String>>(3)?
+                .unwrap_or_else(|| "(unassigned)".to_owned()),
         })
     })?;
     Ok(rows.collect::<rusqlite::Result<_>>()?)
@@ -289,7 +305,11 @@ pub fn layout(store: &Store) -> Result<Vec<LayoutCell>> {
 /// then a key of treatment codes.
 pub fn format_layout(cells: &[LayoutCell]) -> String {
     let mut out = String::new();
-    let width = cells.iter().map(|c| c.enclosure.len() + c.treatment.len() + 1).max().unwrap_or(0);
+    let width = cells
+        .iter()
+        .map(|c| c.enclosure.len() + c.treatment.len() + 1)
+        .max()
+        .unwrap_or(0);
     let mut current: Option<&str> = None;
     for c in cells {
         if current != Some(c.block.as_str()) {
@@ -299,11 +319,21 @@ pub fn format_layout(cells: &[LayoutCell]) -> String {
             out.push_str(&format!("{:<6}", c.block));
             current = Some(&c.block);
         }
-        out.push_str(&format!("  {:<width$}", format!("{}:{}", c.enclosure, c.treatment)));
+        out.push_str(&format!(
+            "  {:<width$}",
+            format!("{}:{}", c.enclosure, c.treatment)
+        ));
     }
-    out = out.lines().map(str::trim_end).collect::<Vec<_>>().join("\n");
+    out = out
+        .lines()
+        .map(str::trim_end)
+        .collect::<Vec<_>>()
+        .join("\n");
     out.push_str("\n\ntreatments:\n");
-    let mut key: Vec<(&str, &str)> = cells.iter().map(|c| (c.treatment.as_str(), c.treatment_name.as_str())).collect();
+    let mut key: Vec<(&str, &str)> = cells
+        .iter()
+        .map(|c| (c.treatment.as_str(), c.treatment_name.as_str()))
+        .collect();
     key.sort();
     key.dedup();
     for (code, name) in key {

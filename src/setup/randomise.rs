@@ -25,8 +25,16 @@ pub struct BlockSizeMismatch {
 /// For each block (given by its number of enclosures), the treatment index of
 /// each enclosure position. Every block must hold exactly one enclosure per
 /// treatment.
-pub fn rcbd(block_sizes: &[usize], treatments: usize, seed: u64) -> Result<Vec<Vec<usize>>, BlockSizeMismatch> {
-    if let Some((block, &size)) = block_sizes.iter().enumerate().find(|(_, s)| **s != treatments) {
+pub fn rcbd(
+    block_sizes: &[usize],
+    treatments: usize,
+    seed: u64,
+) -> Result<Vec<Vec<usize>>, BlockSizeMismatch> {
+    if let Some((block, &size)) = block_sizes
+        .iter()
+        .enumerate()
+        .find(|(_, s)| **s != treatments)
+    {
         return Err(BlockSizeMismatch {
             block,
             size,

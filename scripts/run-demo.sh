@@ -1,0 +1,38 @@
+#!/usr/bin/env bash
+# Builds fieldcage, creates the invented demo season in demo-run/demo.db, prints
+# the cage layout and exports the tidy tables to demo-run/export/.
+# Installs what it needs first. Each run starts from a fresh demo database.
+set -euo pipefail
+cd "$(dirname "$0")/.."
+
+say() { printf '\n==> %s\n' "$*"; }
+
+if ! command -v cargo >/dev/null 2>&1; then
+  echo "cargo is missing: install Rust 1.95 with rustup (https://rustup.rs), then run this again." >&2
+  exit 1
+fi
+if ! command -v cc >/dev/null 2>&1; then
+  if [ "$(id -u)" = 0 ] && command -v apt-get >/dev/null 2>&1; then
+    say "installing a C compiler for the bundled SQLite (apt-get install gcc libc6-dev)"
+    apt-get update -qq && apt-get install -y --no-install-recommends gcc libc6-dev
+  else
+    echo "a C compiler (cc) is needed to build the bundled SQLite; install gcc." >&2
+    exit 1
+  fi
+fi
+
+say "building fieldcage (release)"
+cargo build --release --locked --quiet
+bin=target/release/fieldcage
+
+say "creating the demo season in demo-run/demo.db (invented data)"
+rm -rf demo-run
+mkdir -p demo-run
+"$bin" demo --db demo-run/demo.db
+
+say "layout: blocks, cages and treatments"
+"$bin" layout --db demo-run/demo.db
+
+say "exporting the tidy tables to demo-run/export/"
+"$bin" export --db demo-run/demo.db --out demo-run/export
+ls demo-run/export
