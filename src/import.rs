@@ -214,17 +214,9 @@ fn parse_table(schema: &TableSchema, file: &str, bytes: &[u8]) -> Result<Vec<Row
         let mut values = vec![Value::Null; schema.fields.len()];
         for (cell, &i) in record.iter().zip(&columns) {
             let field = &schema.fields[i];
-            let value = field
-                .parse_cell(cell)
-                .and_then(|v| {
-                    // parse_cell takes an empty cell as NULL without asking
-                    // whether the column may be empty.
-                    field.check(&v)?;
-                    Ok(v)
-                })
-                .map_err(|reason| {
-                    import_error(file, line, &field.name, with_value(cell, &reason))
-                })?;
+            let value = field.parse_cell(cell).map_err(|reason| {
+                import_error(file, line, &field.name, with_value(cell, &reason))
+            })?;
             values[i] = value;
         }
         if let Value::Text(id) = &values[id_column]

@@ -306,14 +306,17 @@ pub fn restore_text(cell: &str) -> &str {
 }
 
 impl FieldSchema {
-    /// Parse one CSV cell into a stored value. An empty cell is NULL.
-    /// Text cells are restored from their formula-injection escape.
+    /// Parse one CSV cell into a stored value and check it against the
+    /// field's constraints. An empty cell is NULL. Free-text cells are
+    /// restored from their formula-injection escape.
     pub fn parse_cell(&self, cell: &str) -> Result<Value, String> {
         if cell.is_empty() {
+            self.check(&Value::Null)?;
             return Ok(Value::Null);
         }
         let value = match self.kind {
-            FieldType::String => Value::Text(restore_text(cell).to_owned()),
+            FieldType::String if self.is_free_text() => Value::Text(restore_text(cell).to_owned()),
+            FieldType::String => Value::Text(cell.to_owned()),
             FieldType::Integer => cell
                 .parse::<i64>()
                 .map(Value::Integer)
@@ -343,10 +346,23 @@ impl FieldSchema {
             (Value::Integer(i), FieldType::Boolean) => (*i != 0).to_string(),
             (Value::Integer(i), _) => i.to_string(),
             (Value::Real(x), _) => format_number(*x),
-            (Value::Text(t), FieldType::String) => neutralise_text(t).into_owned(),
+            (Value::Text(t), FieldType::String) if self.is_free_text() => {
+                neutralise_text(t).into_owned()
+            }
             (Value::Text(t), _) => t.clone(),
             (Value::Blob(_), _) => String::new(),
         }
+    }
+
+    /// Whether the field holds free text, which a spreadsheet could run as a
+    /// formula. Codes, ids and offsets are held to an anchored pattern or an
+    /// enum on every write, so they carry no formula and are written as they
+    /// are (a Braun-Blanquet class `+` or an offset `+02:00` must stay valid
+    /// against its own pattern for the analyst's validator).
+    pub fn is_free_text(&self) -> bool {
+        self.kind == FieldType::String
+            && self.constraints.pattern.is_none()
+            && self.constraints.allowed.is_none()
     }
 
     /// Check a value against this field's type and constraints.

@@ -96,3 +96,31 @@ fn every_planted_problem_names_a_real_cage_and_day() {
         assert!(readme.contains(&line), "demo_data/README.md lists {line}");
     }
 }
+
+/// demo_data/season is exactly what the demo build exports: regenerate it as
+/// DEVELOPERS.md says when this fails after an intended change.
+#[test]
+fn shipped_demo_tables_match_a_fresh_build() {
+    let tmp = Temp::new();
+    let store = demo_store(&tmp);
+    let out = tmp.path("season");
+    fieldcage::export::export(&store, &out).unwrap();
+    let shipped = Path::new(env!("CARGO_MANIFEST_DIR")).join("demo_data/season");
+    let list = |dir: &Path| -> Vec<String> {
+        let mut v: Vec<String> = std::fs::read_dir(dir)
+            .unwrap()
+            .map(|e| e.unwrap().file_name().to_string_lossy().into_owned())
+            .collect();
+        v.sort();
+        v
+    };
+    assert_eq!(list(&shipped), list(&out));
+    for name in list(&out) {
+        let fresh = std::fs::read(out.join(&name)).unwrap();
+        let old = std::fs::read(shipped.join(&name)).unwrap();
+        assert!(
+            fresh == old,
+            "demo_data/season/{name} differs from a fresh build"
+        );
+    }
+}

@@ -14,3 +14,4 @@ mod record;
 mod schema;
 mod setup;
 mod store;
+mod transfer;
