@@ -32,6 +32,23 @@ cargo clippy --all-targets --locked -- -D warnings
 say "unit and integration tests (cargo test)"
 cargo test --locked --all-targets
 
+say "independent checks in Python: setting up .venv (pip install -r tests/python/requirements.txt)"
+if ! python3 -c 'import venv, ensurepip' >/dev/null 2>&1; then
+  if [ "$(id -u)" = 0 ] && command -v apt-get >/dev/null 2>&1; then
+    say "installing python3-venv (apt-get)"
+    apt-get update -qq && apt-get install -y --no-install-recommends python3-venv
+  else
+    echo "python3 with venv is needed; install python3-venv." >&2
+    exit 1
+  fi
+fi
+[ -x .venv/bin/python ] || python3 -m venv .venv
+.venv/bin/python -m pip install --quiet --disable-pip-version-check -r tests/python/requirements.txt
+
+say "data package validated by frictionless (pytest tests/python)"
+cargo build --locked --quiet
+FIELDCAGE_BIN="$PWD/target/debug/fieldcage" .venv/bin/python -m pytest -q tests/python
+
 say "documentation builds without warnings (cargo doc)"
 RUSTDOCFLAGS="-D warnings" cargo doc --no-deps --locked --quiet
 
