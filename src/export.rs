@@ -10,7 +10,7 @@
 //!   byte-order mark; records end with LF, which each resource's `dialect`
 //!   states (Frictionless CSV Dialect, `lineTerminator`).
 //! - Cells are written by [`FieldSchema::format_cell`](crate::tables::FieldSchema::format_cell):
-//!   text is neutralised against formula injection (OWASP "CSV Injection"),
+//!   free text is neutralised against formula injection (OWASP "CSV Injection"),
 //!   numbers are written exactly.
 //! - `datapackage.json` is a Frictionless Tabular Data Package whose table
 //!   schemas are the ones in `schemas/tables/`. It holds no timestamp, so the

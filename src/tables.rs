@@ -477,3 +477,95 @@ pub fn display_value(value: &Value) -> String {
         Value::Blob(b) => format!("<{} bytes>", b.len()),
     }
 }
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use proptest::prelude::*;
+
+    fn field(table: &str, column: &str) -> &'static FieldSchema {
+        get(table)
+            .and_then(|t| t.field(column))
+            .unwrap_or_else(|| panic!("{table}.{column}"))
+    }
+
+    #[test]
+    fn formula_triggers_are_escaped_in_free_text_only() {
+        let notes = field("census", "notes");
+        let text = |s: &str| Value::Text(s.to_owned());
+        // OWASP "CSV Injection" / CWE-1236 check values (REFERENCES.md section 8).
+        assert_eq!(notes.format_cell(&text("=SUM(A1)")), "'=SUM(A1)");
+        assert_eq!(notes.format_cell(&text("@x")), "'@x");
+        assert_eq!(notes.format_cell(&text("-3.5")), "'-3.5");
+        assert_eq!(notes.format_cell(&text("\tx")), "'\tx");
+        assert_eq!(notes.format_cell(&text("plain")), "plain");
+        // Numbers stay byte-exact (REFERENCES.md section 8).
+        assert_eq!(
+            field("site", "longitude").format_cell(&Value::Real(-3.5)),
+            "-3.5"
+        );
+        // Pattern-held codes carry no formula and must stay valid: a
+        // Braun-Blanquet class "+" and an offset "+02:00" (common practice).
+        assert_eq!(field("scale_class", "code").format_cell(&text("+")), "+");
+        assert_eq!(
+            field("experiment", "utc_offset").format_cell(&text("+02:00")),
+            "+02:00"
+        );
+    }
+
+    #[test]
+    fn cells_are_checked_against_type_and_constraints() {
+        let alive = field("census", "alive");
+        assert_eq!(alive.parse_cell("3"), Ok(Value::Integer(3)));
+        assert_eq!(alive.parse_cell(""), Ok(Value::Null));
+        assert_eq!(
+            alive.parse_cell("-1"),
+            Err("is below the minimum 0".to_owned())
+        );
+        assert_eq!(
+            alive.parse_cell("2.5"),
+            Err("is not a whole number".to_owned())
+        );
+        let visit = field("census", "visit_id");
+        assert_eq!(visit.parse_cell(""), Err("is required".to_owned()));
+        let date = field("tagged_leaf", "tagged_on");
+        assert!(date.parse_cell("2026-02-30").is_err(), "no 30 February");
+        assert!(
+            date.parse_cell("2026-5-1").is_err(),
+            "ISO 8601 needs two-digit month and day"
+        );
+        let at = field("visit", "visited_at");
+        assert!(at.parse_cell("2026-05-11T09:00:00+02:00").is_ok());
+        assert!(
+            at.parse_cell("2026-05-11T09:00:00").is_err(),
+            "a timestamp needs its offset"
+        );
+        let mode = field("treatment", "predator_mode");
+        assert_eq!(mode.parse_cell("risk"), Ok(Value::Text("risk".into())));
+        assert!(
+            mode.parse_cell("Risk")
+                .unwrap_err()
+                .contains("none, lethal, risk")
+        );
+        let flag = field("treatment", "herbivores");
+        assert_eq!(flag.parse_cell("true"), Ok(Value::Integer(1)));
+        assert!(flag.parse_cell("yes").is_err());
+    }
+
+    proptest! {
+        /// Any free text survives export and import unchanged.
+        #[test]
+        fn free_text_round_trips(s in "\\PC*") {
+            let notes = field("census", "notes");
+            let value = if s.is_empty() { Value::Null } else { Value::Text(s.clone()) };
+            prop_assert_eq!(notes.parse_cell(&notes.format_cell(&value)), Ok(value));
+        }
+
+        /// Any finite number survives export and import bit for bit.
+        #[test]
+        fn numbers_round_trip_exactly(x in -1.0e6f64..1.0e6) {
+            let cell = field("enclosure", "x_m").format_cell(&Value::Real(x));
+            prop_assert_eq!(cell.parse::<f64>().map(f64::to_bits), Ok(x.to_bits()));
+        }
+    }
+}
