@@ -531,7 +531,7 @@ impl Season {
 
 /// Class of the damage scale holding a percent (classes of Dirzo & Domínguez
 /// 1995, from memory).
-fn damage_class(pct: f64) -> &'static str {
+pub(crate) fn damage_class(pct: f64) -> &'static str {
     match pct {
         x if x <= 0.0 => "0",
         x if x <= 6.0 => "1",

@@ -6,6 +6,7 @@
 //! definitions in `schemas/tables/` ([`tables`]) are the single description of
 //! every stored and exported column.
 
+pub mod bench;
 pub mod demo;
 pub mod error;
 pub mod export;
@@ -14,6 +15,7 @@ pub mod model;
 pub mod record;
 pub mod setup;
 pub mod store;
+pub mod synth;
 pub mod tables;
 
 pub use error::{Error, Result};

@@ -58,6 +58,18 @@ enum Command {
         /// Folder holding the tables.
         dir: PathBuf,
     },
+    /// Time each stage on a synthetic season (run with --release).
+    Bench {
+        /// Cages (rounded up to a multiple of 4).
+        #[arg(long, default_value_t = 200)]
+        cages: usize,
+        /// Visits of each kind per cage.
+        #[arg(long, default_value_t = 20)]
+        visits: usize,
+        /// Plant species per cover visit.
+        #[arg(long, default_value_t = 40)]
+        species: usize,
+    },
 }
 
 fn main() -> ExitCode {
@@ -143,6 +155,20 @@ fn run(cli: Cli) -> anyhow::Result<()> {
                 summary.tables.len(),
                 db.display()
             );
+        }
+        Command::Bench {
+            cages,
+            visits,
+            species,
+        } => {
+            let size = fieldcage::synth::SeasonSize {
+                cages,
+                visits,
+                species,
+            };
+            let dir = tempfile::tempdir().context("making a scratch folder")?;
+            let timings = fieldcage::bench::run(size, dir.path())?;
+            print!("{}", fieldcage::bench::format_table(size, &timings));
         }
     }
     Ok(())

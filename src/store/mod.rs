@@ -189,6 +189,8 @@ pub(crate) fn read_values(row: &rusqlite::Row<'_>, n: usize) -> rusqlite::Result
 /// Apply the durable settings and read each one back.
 fn configure(conn: &Connection) -> Result<()> {
     conn.busy_timeout(std::time::Duration::from_secs(5))?;
+    // The write path prepares a few statements per table; keep them all.
+    conn.set_prepared_statement_cache_capacity(256);
     let mode: String = conn.query_row("PRAGMA journal_mode = WAL", [], |r| r.get(0))?;
     expect_pragma("journal_mode", "wal", &mode.to_ascii_lowercase())?;
     conn.execute_batch("PRAGMA synchronous = FULL; PRAGMA foreign_keys = ON;")?;

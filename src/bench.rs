@@ -1,0 +1,67 @@
+//! The benchmark behind `fieldcage bench`: builds a synthetic season of a
+//! given size ([`crate::synth`]) and times each stage on it. Figures are
+//! wall-clock seconds of one run on this machine; run in release mode.
+
+use std::path::Path;
+use std::time::Instant;
+
+use crate::Result;
+use crate::store::Store;
+use crate::synth::{self, SeasonSize};
+
+/// One line of the benchmark table.
+#[derive(Debug, Clone, PartialEq)]
+pub struct Timing {
+    /// What was timed.
+    pub task: String,
+    /// How much work it was (rows, files, …).
+    pub work: String,
+    /// Wall-clock seconds.
+    pub seconds: f64,
+}
+
+/// Run every stage on a synthetic season built in `dir` (which must be empty).
+pub fn run(size: SeasonSize, dir: &Path) -> Result<Vec<Timing>> {
+    let mut out = Vec::new();
+    let mut time = |task: &str, work: String, f: &mut dyn FnMut() -> Result<()>| -> Result<()> {
+        let t = Instant::now();
+        f()?;
+        out.push(Timing {
+            task: task.to_owned(),
+            work,
+            seconds: t.elapsed().as_secs_f64(),
+        });
+        Ok(())
+    };
+    let db = dir.join("season.db");
+    let mut store = Store::open(&db)?;
+    time(
+        "build season through the write path",
+        format!("{} cover rows", size.cover_rows()),
+        &mut || synth::build(&mut store, size, 1),
+    )?;
+    let changes = store.change_count()?;
+    let export_dir = dir.join("export");
+    time(
+        "export tidy tables",
+        format!("{changes} logged changes"),
+        &mut || crate::export::export(&store, &export_dir).map(drop),
+    )?;
+    let mut copy = Store::open(dir.join("copy.db"))?;
+    time("import tidy tables", "all tables".to_owned(), &mut || {
+        crate::import::import(&mut copy, &export_dir).map(drop)
+    })?;
+    Ok(out)
+}
+
+/// The timings as a Markdown table.
+pub fn format_table(size: SeasonSize, timings: &[Timing]) -> String {
+    let mut s = format!(
+        "season: {} cages x {} visits x {} species\n\n| task | work | seconds |\n|---|---|---:|\n",
+        size.cages, size.visits, size.species
+    );
+    for t in timings {
+        s.push_str(&format!("| {} | {} | {:.3} |\n", t.task, t.work, t.seconds));
+    }
+    s
+}

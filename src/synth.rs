@@ -1,0 +1,204 @@
+//! Synthetic seasons of any size, for benchmarks and scale tests: blocks of
+//! four cages (the demo's four treatments), `species` plants, and `visits`
+//! visits of each kind. Seeded, so a size always gives the same season.
+//! Numbers are random draws, not a model of anything.
+
+use std::fmt::Write as _;
+use std::path::Path;
+
+use chrono::{Duration, FixedOffset, NaiveDate, TimeZone};
+use rand::{Rng, SeedableRng};
+use rand_chacha::ChaCha8Rng;
+
+use crate::model::*;
+use crate::record::{self, CoverEntry, CoverTarget, DamageEntry, NewVisit};
+use crate::setup;
+use crate::store::Store;
+use crate::{Error, Result};
+
+/// The size of a synthetic season.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub struct SeasonSize {
+    /// Cages (rounded up to a multiple of 4, one per treatment and block).
+    pub cages: usize,
+    /// Visits of each kind (census, cover, damage) per cage.
+    pub visits: usize,
+    /// Plant species recorded at every cover visit.
+    pub species: usize,
+}
+
+impl SeasonSize {
+    /// Rows of cover records the season holds (species plus one ground category).
+    pub fn cover_rows(&self) -> usize {
+        self.blocks() * 4 * self.visits * (self.species + 1)
+    }
+
+    fn blocks(&self) -> usize {
+        self.cages.div_ceil(4).max(1)
+    }
+}
+
+/// The experiment definition of a synthetic season.
+pub fn definition_text(size: SeasonSize) -> String {
+    let mut t = String::new();
+    let _ = write!(
+        t,
+        "[experiment]\ncode = \"synthetic\"\ntitle = \"Synthetic season ({} cages, {} visits, {} species)\"\n\
+         start_date = 2026-04-01\nutc_offset = \"+00:00\"\n\n[[site]]\ncode = \"SYN\"\nname = \"Synthetic site\"\n\n",
+        size.blocks() * 4,
+        size.visits,
+        size.species
+    );
+    for b in 0..size.blocks() {
+        let labels: Vec<String> = (0..4)
+            .map(|i| format!("\"Z-{:04}\"", b * 4 + i + 1))
+            .collect();
+        let _ = write!(
+            t,
+            "[[block]]\ncode = \"K{:03}\"\nenclosures = [{}]\n\n",
+            b + 1,
+            labels.join(", ")
+        );
+    }
+    t.push_str("[enclosure_defaults]\narea_m2 = 0.5\n\n");
+    for (code, herb, mode, stock) in [
+        ("P", false, "none", ""),
+        (
+            "S",
+            true,
+            "none",
+            r#"{ taxon = "HERB", count = 10, restock_below = 5 }"#,
+        ),
+        (
+            "SB",
+            true,
+            "lethal",
+            r#"{ taxon = "HERB", count = 10, restock_below = 5 }, { taxon = "PRED", count = 2 }"#,
+        ),
+        (
+            "SR",
+            true,
+            "risk",
+            r#"{ taxon = "HERB", count = 10, restock_below = 5 }, { taxon = "PRED", count = 2 }"#,
+        ),
+    ] {
+        let _ = write!(
+            t,
+            "[[treatment]]\ncode = \"{code}\"\nname = \"{code}\"\nherbivores = {herb}\npredator_mode = \"{mode}\"\nstock = [{stock}]\n\n"
+        );
+    }
+    let groups = ["grass", "forb", "legume", "sedge"];
+    for s in 0..size.species {
+        let _ = write!(
+            t,
+            "[[taxon]]\ncode = \"PL{s:03}\"\nscientific_name = \"Planta synthetica {s}\"\nrole = \"plant\"\nplant_group = \"{}\"\n\n",
+            groups[s % groups.len()]
+        );
+    }
+    t.push_str("[[taxon]]\ncode = \"HERB\"\nscientific_name = \"Herbivorus syntheticus\"\nrole = \"herbivore\"\n\n");
+    t.push_str("[[taxon]]\ncode = \"PRED\"\nscientific_name = \"Predator syntheticus\"\nrole = \"predator\"\n\n");
+    t.push_str(
+        "[cover]\ncode = \"visual\"\nmethod = \"percent\"\nground = [{ code = \"bare\", name = \"Bare\" }]\n\n\
+         [damage]\ncode = \"classes\"\nmethod = \"class\"\nscale = \"dirzo-dominguez\"\nleaves_per_enclosure = 3\n\n",
+    );
+    let days: Vec<String> = (1..=size.visits).map(|d| d.to_string()).collect();
+    let _ = write!(
+        t,
+        "[schedule]\nstocking = [0]\ncensus = [{d}]\ncover = [{d}]\ndamage = [{d}]\n",
+        d = days.join(", ")
+    );
+    t
+}
+
+/// Build a synthetic season into an empty database.
+pub fn build(store: &mut Store, size: SeasonSize, seed: u64) -> Result<()> {
+    let def = setup::definition::parse(Path::new("synthetic.toml"), &definition_text(size))?;
+    store.use_seeded_ids(seed, 1_775_000_000_000);
+    setup::init(store, &def, seed)?;
+    let enclosures = store.list::<Enclosure>()?;
+    let taxa = store.list::<Taxon>()?;
+    let plants: Vec<TaxonId> = taxa
+        .iter()
+        .filter(|t| t.role == Role::Plant)
+        .map(|t| t.id)
+        .collect();
+    let animals: Vec<TaxonId> = taxa
+        .iter()
+        .filter(|t| t.role != Role::Plant)
+        .map(|t| t.id)
+        .collect();
+    let start =
+        NaiveDate::from_ymd_opt(2026, 4, 1).ok_or_else(|| Error::State("bad start date".into()))?;
+    let utc = FixedOffset::east_opt(0).ok_or_else(|| Error::State("bad offset".into()))?;
+    let mut rng = ChaCha8Rng::seed_from_u64(seed);
+    store.write(|w| {
+        for (i, e) in enclosures.iter().enumerate() {
+            let at = |day: usize, minute: usize| {
+                let local = (start + Duration::days(day as i64))
+                    .and_hms_opt(8, 0, 0)
+                    .unwrap_or_default()
+                    + Duration::minutes((i * 4 + minute) as i64);
+                utc.from_utc_datetime(&local)
+            };
+            let visit = |w: &mut crate::store::Writer<'_>, kind, day: usize, minute| {
+                record::start_visit(
+                    w,
+                    NewVisit {
+                        enclosure_id: e.id,
+                        kind,
+                        day: Some(day as i64),
+                        visited_at: at(day, minute),
+                        observer: Some("synthetic".into()),
+                        device: None,
+                    },
+                )
+            };
+            let mut leaves = Vec::new();
+            for k in 0..3 {
+                let leaf = record::tag_leaf(
+                    w,
+                    e.id,
+                    plants[k % plants.len()],
+                    &format!("{}-T{}", e.label, k + 1),
+                    start,
+                    None,
+                )?;
+                leaves.push(leaf.id);
+            }
+            let mut damage = [0.0f64; 3];
+            for day in 1..=size.visits {
+                let v = visit(w, VisitKind::Census, day, 0)?;
+                for a in &animals {
+                    record::census(w, v.id, *a, Some(rng.random_range(0..10)), Some(0), Some(0))?;
+                }
+                let v = visit(w, VisitKind::Cover, day, 1)?;
+                let mut total = 0.0;
+                for p in &plants {
+                    let c =
+                        f64::from(rng.random_range(0..(200 / size.species.max(1)).max(2) as u32));
+                    total += c;
+                    record::cover(
+                        w,
+                        v.id,
+                        CoverTarget::Taxon(*p),
+                        CoverEntry::Percent(c.min(100.0)),
+                    )?;
+                }
+                let bare = (100.0 - total).max(0.0);
+                record::cover(
+                    w,
+                    v.id,
+                    CoverTarget::Category("bare".into()),
+                    CoverEntry::Percent(bare),
+                )?;
+                let v = visit(w, VisitKind::Damage, day, 2)?;
+                for (leaf, d) in leaves.iter().zip(damage.iter_mut()) {
+                    *d = (*d + rng.random_range(0.0..4.0)).min(100.0);
+                    let class = crate::demo::damage_class(*d);
+                    record::damage(w, v.id, *leaf, DamageEntry::Class(class.into()))?;
+                }
+            }
+        }
+        Ok(())
+    })
+}
