@@ -49,6 +49,26 @@ say "data package validated by frictionless (pytest tests/python)"
 cargo build --locked --quiet
 FIELDCAGE_BIN="$PWD/target/debug/fieldcage" .venv/bin/python -m pytest -q tests/python
 
+say "browser end-to-end tests: Debian chromium + playwright-core (tests/e2e)"
+if [ ! -x /usr/bin/chromium ]; then
+  if [ "$(id -u)" = 0 ] && command -v apt-get >/dev/null 2>&1; then
+    say "installing Debian's chromium for the browser tests (apt-get install chromium)"
+    apt-get update -qq && apt-get install -y --no-install-recommends chromium fonts-dejavu-core
+  else
+    echo "the browser tests need Debian's chromium at /usr/bin/chromium (apt-get install chromium)" >&2
+    exit 1
+  fi
+fi
+if ! command -v npm >/dev/null 2>&1; then
+  echo "the browser tests need Node.js 20 with npm" >&2
+  exit 1
+fi
+# playwright-core never downloads a browser; it drives /usr/bin/chromium.
+(cd tests/e2e && npm ci --no-audit --no-fund --loglevel=error)
+rm -rf test-artifacts/e2e
+FIELDCAGE_BIN="$PWD/target/debug/fieldcage" node --test --test-concurrency=1 tests/e2e/
+echo "screenshots: test-artifacts/e2e/"
+
 say "documentation builds without warnings (cargo doc)"
 RUSTDOCFLAGS="-D warnings" cargo doc --no-deps --locked --quiet
 

@@ -58,6 +58,25 @@ enum Command {
         /// Folder holding the tables.
         dir: PathBuf,
     },
+    /// Serve the tablet UI and the JSON API for a database.
+    Serve {
+        /// The database file (with --demo: built with the demo season if missing).
+        #[arg(long)]
+        db: PathBuf,
+        /// Build the invented demo season first when the database does not exist.
+        #[arg(long)]
+        demo: bool,
+        /// Port to listen on.
+        #[arg(long, default_value_t = 8088)]
+        port: u16,
+        /// Open the route on this field day instead of today (YYYY-MM-DD).
+        #[arg(long)]
+        today: Option<chrono::NaiveDate>,
+        /// Listen on every network interface, protected by a random token
+        /// (only on a network you trust).
+        #[arg(long)]
+        lan: bool,
+    },
     /// Time each stage on a synthetic season (run with --release).
     Bench {
         /// Cages (rounded up to a multiple of 4).
@@ -155,6 +174,55 @@ fn run(cli: Cli) -> anyhow::Result<()> {
                 summary.tables.len(),
                 db.display()
             );
+        }
+        Command::Serve {
+            db,
+            demo,
+            port,
+            today,
+            lan,
+        } => {
+            if demo && !db.exists() {
+                let mut store = new_database(&db)?;
+                demo::build(&mut store)?;
+                println!("built the invented demo season in {}", db.display());
+            }
+            let store = existing_database(&db)?;
+            let mut service = fieldcage::service::Service::new(store);
+            if let Some(day) = today {
+                service = service.with_today(day);
+            }
+            let (ip, guard) = if lan {
+                (
+                    std::net::IpAddr::from([0, 0, 0, 0]),
+                    fieldcage::server::Guard::lan(),
+                )
+            } else {
+                (
+                    std::net::IpAddr::from([127, 0, 0, 1]),
+                    fieldcage::server::Guard::loopback(port),
+                )
+            };
+            let addr = std::net::SocketAddr::new(ip, port);
+            match &guard.token {
+                Some(token) => println!(
+                    "fieldcage is serving {} on every interface, port {port}.\n\
+                     Open http://<this-device-address>:{port}/#token={token} on a device you trust.",
+                    db.display()
+                ),
+                None => println!(
+                    "fieldcage is serving {}.\nOpen http://127.0.0.1:{port}/ (Ctrl-C to stop)",
+                    db.display()
+                ),
+            }
+            let runtime = tokio::runtime::Runtime::new().context("starting the server runtime")?;
+            runtime
+                .block_on(fieldcage::server::serve(
+                    std::sync::Arc::new(service),
+                    addr,
+                    guard,
+                ))
+                .with_context(|| format!("serving on {addr}"))?;
         }
         Command::Bench {
             cages,

@@ -73,6 +73,11 @@ impl<'a> Writer<'a> {
         Ok(())
     }
 
+    /// This database's device id.
+    pub fn device_id(&self) -> &str {
+        self.device_id
+    }
+
     /// A fresh row id (UUIDv7).
     pub fn new_id(&mut self) -> Uuid {
         self.ids.next()
