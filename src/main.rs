@@ -60,7 +60,7 @@ enum Command {
     },
     /// Serve the tablet UI and the JSON API for a database.
     Serve {
-        /// The database file (with --demo: built with the demo season if missing).
+        /// The database file (with --demo: the demo season is built into it if it holds no experiment).
         #[arg(long)]
         db: PathBuf,
         /// Build the invented demo season first when the database does not exist.
@@ -182,12 +182,11 @@ fn run(cli: Cli) -> anyhow::Result<()> {
             today,
             lan,
         } => {
-            if demo && !db.exists() {
-                let mut store = new_database(&db)?;
-                demo::build(&mut store)?;
-                println!("built the invented demo season in {}", db.display());
-            }
-            let store = existing_database(&db)?;
+            let store = if demo {
+                demo::open_or_build(&db).with_context(|| format!("opening {}", db.display()))?
+            } else {
+                existing_database(&db)?
+            };
             let mut service = fieldcage::service::Service::new(store);
             if let Some(day) = today {
                 service = service.with_today(day);
