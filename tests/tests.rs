@@ -7,6 +7,7 @@
 mod util;
 
 mod changelog;
+mod checks;
 mod cli;
 mod demo;
 mod randomise;
