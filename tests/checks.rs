@@ -1295,3 +1295,38 @@ fn confirmed_flags_survive_export_and_import() {
     assert_eq!(report.changes, checks::Changes::default());
     assert_eq!(report.confirmed, 1);
 }
+
+/// A synthetic season is drawn within what the checks accept, except for the
+/// cover totals that chance pushes past 100 %: the checks raise exactly those,
+/// as an independent SQL sum finds them, and store them without a clash.
+#[test]
+fn a_synthetic_season_raises_only_its_chance_cover_totals() {
+    let tmp = Temp::new();
+    let mut store = tmp.store("synthetic.db");
+    let size = fieldcage::synth::SeasonSize {
+        cages: 8,
+        visits: 5,
+        species: 10,
+    };
+    fieldcage::synth::build(&mut store, size, 1).unwrap();
+    let today = NaiveDate::from_ymd_opt(2026, 4, 30).unwrap();
+    let flags = checks::check(store.conn(), &Scope::Season, today).unwrap();
+    assert!(
+        flags.iter().all(|f| f.rule_id == "cover.total"),
+        "{flags:#?}"
+    );
+    let off: i64 = store
+        .conn()
+        .query_row(
+            "SELECT count(*) FROM (SELECT sum(c.cover_pct) AS total FROM visit v \
+             JOIN cover_record c ON c.visit_id = v.id WHERE v.kind = 'cover' \
+             GROUP BY v.id HAVING abs(total - 100) > 5)",
+            [],
+            |r| r.get(0),
+        )
+        .unwrap();
+    assert!(off > 0, "the season has a few totals above 100 %");
+    assert_eq!(flags.len() as i64, off);
+    let report = checks::run(&mut store, &Scope::Season, today).unwrap();
+    assert_eq!(report.changes.new as i64, off);
+}
