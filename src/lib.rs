@@ -7,6 +7,7 @@
 //! every stored and exported column.
 
 pub mod bench;
+pub mod checks;
 pub mod demo;
 pub mod error;
 pub mod export;

@@ -79,6 +79,7 @@ const SOURCES: &[(&str, &str)] = &[
         "damage_record",
         include_str!("../schemas/tables/damage_record.json"),
     ),
+    ("flag", include_str!("../schemas/tables/flag.json")),
 ];
 
 /// A Frictionless field type used by fieldcage's tables.

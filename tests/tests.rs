@@ -8,6 +8,7 @@ mod util;
 
 mod api;
 mod changelog;
+mod checks;
 mod cli;
 mod demo;
 mod randomise;
