@@ -1,6 +1,7 @@
 #!/usr/bin/env bash
 # Builds fieldcage, creates the invented demo season in demo-run/demo.db, prints
-# the cage layout and exports the tidy tables to demo-run/export/.
+# the cage layout, runs the day's-end checks and exports the tidy tables to
+# demo-run/export/.
 # Installs what it needs first. Each run starts from a fresh demo database.
 set -euo pipefail
 cd "$(dirname "$0")/.."
@@ -32,6 +33,9 @@ mkdir -p demo-run
 
 say "layout: blocks, cages and treatments"
 "$bin" layout --db demo-run/demo.db
+
+say "day's-end checks over the whole season (the demo's planted problems; exit 1 = errors open)"
+"$bin" check --db demo-run/demo.db --all || [ $? -eq 1 ]
 
 say "exporting the tidy tables to demo-run/export/"
 "$bin" export --db demo-run/demo.db --out demo-run/export
