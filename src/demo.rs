@@ -73,6 +73,22 @@ pub fn build(store: &mut Store) -> Result<Vec<PlantedProblem>> {
     Ok(problems)
 }
 
+/// Open the database at `path`, building the demo season into it when it holds
+/// no experiment yet (a new file). Used by `fieldcage serve --demo` and the
+/// tablet app's `--demo`.
+pub fn open_or_build(path: &Path) -> Result<Store> {
+    let mut store = Store::open(path)?;
+    let experiments: i64 = store.conn().query_row(
+        "SELECT count(*) FROM experiment WHERE deleted = 0",
+        [],
+        |r| r.get(0),
+    )?;
+    if experiments == 0 {
+        build(&mut store)?;
+    }
+    Ok(store)
+}
+
 /// The day the demo's checks run as of: the last day any planned visit is
 /// on time, so that every visit is due and none is in the future.
 pub fn check_day(def: &Definition) -> NaiveDate {

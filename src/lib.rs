@@ -14,6 +14,8 @@ pub mod export;
 pub mod import;
 pub mod model;
 pub mod record;
+pub mod server;
+pub mod service;
 pub mod setup;
 pub mod store;
 pub mod synth;

@@ -58,6 +58,25 @@ enum Command {
         /// Folder holding the tables.
         dir: PathBuf,
     },
+    /// Serve the tablet UI and the JSON API for a database.
+    Serve {
+        /// The database file (with --demo: the demo season is built into it if it holds no experiment).
+        #[arg(long)]
+        db: PathBuf,
+        /// Build the invented demo season first when the database does not exist.
+        #[arg(long)]
+        demo: bool,
+        /// Port to listen on.
+        #[arg(long, default_value_t = 8088)]
+        port: u16,
+        /// Open the route on this field day instead of today (YYYY-MM-DD).
+        #[arg(long)]
+        today: Option<chrono::NaiveDate>,
+        /// Listen on every network interface, protected by a random token
+        /// (only on a network you trust).
+        #[arg(long)]
+        lan: bool,
+    },
     /// Day's-end checks: raise, store and list the flags (exit 1 while an
     /// error is open); or confirm a flag with a note.
     #[command(group(clap::ArgGroup::new("scope").args(["day", "all", "cage"])))]
@@ -189,6 +208,54 @@ fn run(cli: Cli) -> anyhow::Result<ExitCode> {
                 summary.tables.len(),
                 db.display()
             );
+        }
+        Command::Serve {
+            db,
+            demo,
+            port,
+            today,
+            lan,
+        } => {
+            let store = if demo {
+                demo::open_or_build(&db).with_context(|| format!("opening {}", db.display()))?
+            } else {
+                existing_database(&db)?
+            };
+            let mut service = fieldcage::service::Service::new(store);
+            if let Some(day) = today {
+                service = service.with_today(day);
+            }
+            let (ip, guard) = if lan {
+                (
+                    std::net::IpAddr::from([0, 0, 0, 0]),
+                    fieldcage::server::Guard::lan(),
+                )
+            } else {
+                (
+                    std::net::IpAddr::from([127, 0, 0, 1]),
+                    fieldcage::server::Guard::loopback(port),
+                )
+            };
+            let addr = std::net::SocketAddr::new(ip, port);
+            match &guard.token {
+                Some(token) => println!(
+                    "fieldcage is serving {} on every interface, port {port}.\n\
+                     Open http://<this-device-address>:{port}/#token={token} on a device you trust.",
+                    db.display()
+                ),
+                None => println!(
+                    "fieldcage is serving {}.\nOpen http://127.0.0.1:{port}/ (Ctrl-C to stop)",
+                    db.display()
+                ),
+            }
+            let runtime = tokio::runtime::Runtime::new().context("starting the server runtime")?;
+            runtime
+                .block_on(fieldcage::server::serve(
+                    std::sync::Arc::new(service),
+                    addr,
+                    guard,
+                ))
+                .with_context(|| format!("serving on {addr}"))?;
         }
         Command::Bench {
             cages,

@@ -6,6 +6,7 @@
 
 mod util;
 
+mod api;
 mod changelog;
 mod checks;
 mod cli;
