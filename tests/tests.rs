@@ -6,6 +6,7 @@
 
 mod util;
 
+mod analysis;
 mod changelog;
 mod cli;
 mod demo;
