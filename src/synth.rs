@@ -122,11 +122,12 @@ pub fn build(store: &mut Store, size: SeasonSize, seed: u64) -> Result<()> {
         .filter(|t| t.role == Role::Plant)
         .map(|t| t.id)
         .collect();
-    let animals: Vec<TaxonId> = taxa
-        .iter()
-        .filter(|t| t.role != Role::Plant)
-        .map(|t| t.id)
+    let assigned: std::collections::HashMap<EnclosureId, TreatmentId> = store
+        .list::<Assignment>()?
+        .into_iter()
+        .map(|a| (a.enclosure_id, a.treatment_id))
         .collect();
+    let plans = store.list::<StockingPlan>()?;
     let start =
         NaiveDate::from_ymd_opt(2026, 4, 1).ok_or_else(|| Error::State("bad start date".into()))?;
     let utc = FixedOffset::east_opt(0).ok_or_else(|| Error::State("bad offset".into()))?;
@@ -166,10 +167,25 @@ pub fn build(store: &mut Store, size: SeasonSize, seed: u64) -> Result<()> {
                 leaves.push(leaf.id);
             }
             let mut damage = [0.0f64; 3];
+            // Animals of the cage's stocking plan, stocked on day 0; each
+            // census finds them or a few fewer (those not found count as missing).
+            let mut stock: Vec<(TaxonId, i64)> = plans
+                .iter()
+                .filter(|p| assigned.get(&e.id) == Some(&p.treatment_id))
+                .map(|p| (p.taxon_id, p.initial_count))
+                .collect();
+            if !stock.is_empty() {
+                let v = visit(w, VisitKind::Stocking, 0, 0)?;
+                for (taxon, count) in &stock {
+                    record::stock(w, v.id, *taxon, StockingKind::Initial, *count, None)?;
+                }
+            }
             for day in 1..=size.visits {
                 let v = visit(w, VisitKind::Census, day, 0)?;
-                for a in &animals {
-                    record::census(w, v.id, *a, Some(rng.random_range(0..10)), Some(0), Some(0))?;
+                for (taxon, alive) in stock.iter_mut() {
+                    let lost = i64::from(*alive > 0 && rng.random_bool(0.1));
+                    *alive -= lost;
+                    record::census(w, v.id, *taxon, Some(*alive), Some(0), Some(lost))?;
                 }
                 let v = visit(w, VisitKind::Cover, day, 1)?;
                 let mut total = 0.0;

@@ -541,3 +541,80 @@ fn analysis_probe_answers_json_on_stdin() {
     let help = fieldcage_cli(&["--help"], Path::new("."));
     assert!(!String::from_utf8_lossy(&help.stdout).contains("analysis-probe"));
 }
+
+#[test]
+fn chart_data_covers_every_chart_of_the_results_screen() {
+    let tmp = Temp::new();
+    let (_, r) = demo_results(&tmp);
+    let charts = analysis::charts::charts(&r);
+    // Cover over time: total and four plant groups, for each of 4 treatments,
+    // each with the three cover days (0, 14, 28).
+    assert_eq!(charts.cover_over_time.len(), 5 * 4);
+    assert!(
+        charts
+            .cover_over_time
+            .iter()
+            .all(|s| s.points.iter().map(|p| p.day).eq([0, 14, 28]))
+    );
+    // Damage: index and mean percent, 4 treatments, weekly days 7–28.
+    assert_eq!(charts.damage_by_treatment.len(), 2 * 4);
+    // Survival: slugs in S, SB, SR and beetles in SB, SR; each curve starts at
+    // 1 on the stocking day and never rises.
+    assert_eq!(charts.survival_curves.len(), 5);
+    for c in &charts.survival_curves {
+        assert_eq!((c.points[0].day, c.points[0].survival), (0, 1.0));
+        assert!(c.points.windows(2).all(|w| w[1].survival <= w[0].survival));
+    }
+    // Effect sizes: each response's last day only, each with its interval.
+    assert!(!charts.effect_sizes.is_empty());
+    assert!(
+        charts
+            .effect_sizes
+            .iter()
+            .all(|e| Some(e.day) == r.last_day(&e.response) && e.ci_low.is_some())
+    );
+    // Plain serde data: it serialises to JSON for the UI.
+    let json = serde_json::to_value(&charts).unwrap();
+    assert!(json["survival_curves"][0]["points"].is_array());
+}
+
+#[test]
+fn the_report_states_each_result_with_its_assumptions() {
+    let tmp = Temp::new();
+    let (store, _) = demo_results(&tmp);
+    let out = tmp.path("x");
+    fieldcage::export::export(&store, &out).unwrap();
+    let report = std::fs::read_to_string(out.join("report.md")).unwrap();
+    for section in [
+        "## Survival of stocked animals",
+        "## Cover, diversity and herbivory by treatment",
+        "## Treatment effects (log response ratios)",
+        "## Consumptive and non-consumptive predator effects",
+        "## Data handling",
+    ] {
+        assert!(report.contains(section), "{section}");
+    }
+    // Each result section states its assumptions and names its sources.
+    assert_eq!(report.matches("Assumptions").count(), 4);
+    for source in [
+        "Kaplan & Meier 1958",
+        "Mayfield (1961, 1975)",
+        "Pollock et al. 1989",
+        "Simpson 1949",
+        "Hill 1973",
+        "Dirzo & Domínguez 1995",
+        "Hedges, Gurevitch & Curtis 1999",
+        "Preisser, Bolnick & Benard 2005",
+        "Dembicz & Dengler 2025",
+    ] {
+        assert!(report.contains(source), "the report names {source}");
+    }
+    assert!(
+        report.contains("count as deaths"),
+        "the missing-animal rule"
+    );
+    // Every analysis table is listed.
+    for t in tables::analysis() {
+        assert!(report.contains(&format!("`{}.csv`", t.name)), "{}", t.name);
+    }
+}

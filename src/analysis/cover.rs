@@ -342,4 +342,18 @@ mod tests {
         // Nothing to be relative to: not a division by zero.
         assert_eq!(relative_cover(&[0.0, 0.0]), vec![None, None]);
     }
+
+    proptest::proptest! {
+        /// Relative cover of species with any cover sums to 100 (common practice).
+        #[test]
+        fn relative_cover_sums_to_100(cover in proptest::collection::vec(0.0f64..100.0, 1..40)) {
+            let rel = relative_cover(&cover);
+            if cover.iter().sum::<f64>() > 0.0 {
+                let total: f64 = rel.iter().map(|r| r.unwrap()).sum();
+                proptest::prop_assert!((total - 100.0).abs() < 1e-9);
+            } else {
+                proptest::prop_assert!(rel.iter().all(Option::is_none));
+            }
+        }
+    }
 }

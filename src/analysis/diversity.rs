@@ -234,4 +234,25 @@ mod tests {
         close(hill_number(&even, 0.5), 3.0);
         close(hill_number(&even, 3.0), 3.0);
     }
+
+    proptest::proptest! {
+        /// Bounds that hold for any community (Hill 1973; Jost 2006):
+        /// 0 ≤ H′ ≤ ln S, 0 ≤ J′ ≤ 1, ^0D ≥ ^1D ≥ ^2D ≥ 1.
+        #[test]
+        fn indices_stay_within_their_bounds(cover in proptest::collection::vec(0.0f64..100.0, 1..40)) {
+            let d = diversity(&cover).unwrap();
+            if d.richness == 0 {
+                proptest::prop_assert_eq!(d.shannon, None);
+            } else {
+                let s = d.richness as f64;
+                let h = d.shannon.unwrap();
+                proptest::prop_assert!(h >= -1e-12 && h <= s.ln() + 1e-9);
+                if let Some(j) = d.pielou {
+                    proptest::prop_assert!((-1e-12..=1.0 + 1e-9).contains(&j));
+                }
+                let (h0, h1, h2) = (d.hill_0.unwrap(), d.hill_1.unwrap(), d.hill_2.unwrap());
+                proptest::prop_assert!(h0 + 1e-9 >= h1 && h1 + 1e-9 >= h2 && h2 >= 1.0 - 1e-9);
+            }
+        }
+    }
 }

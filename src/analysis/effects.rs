@@ -15,7 +15,8 @@
 //!   non-consumptive = ln(X_lethal / X_risk); share = non-consumptive / total.
 //!   The share is unstable when the total is near 0, so it gets a seeded
 //!   percentile bootstrap interval (cages resampled with replacement within
-//!   each treatment). Interpretation caveats: Abrams 2007 (Ecology
+//!   each treatment; one stream per day and set of cages, so every response
+//!   measured on the same cages is resampled alike). Interpretation caveats: Abrams 2007 (Ecology
 //!   88:2555–2562); Okuyama & Bolker 2007 (Ecology Letters 10:264–271).
 
 use rand::{Rng, SeedableRng};
@@ -147,31 +148,67 @@ pub struct BootstrapInterval {
 /// Share of resamples that must give a defined share for an interval.
 const MIN_VALID: f64 = 0.9;
 
-/// Percentile bootstrap of the share: each resample draws, within each
-/// treatment, as many cages as it has, with replacement (seeded ChaCha8).
-pub fn bootstrap_share(
-    none: &[f64],
-    lethal: &[f64],
-    risk: &[f64],
+/// Resampled positions for a bootstrap of three groups: `reps` resamples,
+/// each drawing, within each group, as many positions as the group has
+/// values, with replacement (seeded ChaCha8). Drawn once, they serve every
+/// response measured on the same cages.
+#[derive(Debug, Clone)]
+pub struct Resamples {
     reps: usize,
+    sizes: [usize; 3],
     seed: u64,
-) -> BootstrapInterval {
-    let mut rng = ChaCha8Rng::seed_from_u64(seed);
-    let mut shares = Vec::with_capacity(reps);
-    if !(none.is_empty() || lethal.is_empty() || risk.is_empty()) {
-        for _ in 0..reps {
-            let (n, l, r) = (
-                resample_mean(none, &mut rng),
-                resample_mean(lethal, &mut rng),
-                resample_mean(risk, &mut rng),
-            );
-            if let Some(share) = predator_split(n, l, r).and_then(|s| s.share)
+    positions: Vec<u32>,
+}
+
+impl Resamples {
+    /// Draw `reps` resamples of groups of the given sizes.
+    pub fn draw(sizes: [usize; 3], reps: usize, seed: u64) -> Resamples {
+        let mut rng = ChaCha8Rng::seed_from_u64(seed);
+        let per_rep: usize = sizes.iter().sum();
+        let mut positions = Vec::with_capacity(reps * per_rep);
+        if sizes.iter().all(|n| *n > 0) {
+            for _ in 0..reps {
+                for n in sizes {
+                    // u32 draws keep the stream the same on 32- and 64-bit machines.
+                    let n = n as u32;
+                    positions.extend((0..n).map(|_| rng.random_range(0..n)));
+                }
+            }
+        }
+        Resamples {
+            reps,
+            sizes,
+            seed,
+            positions,
+        }
+    }
+}
+
+/// Percentile bootstrap of the share from three groups of values (no
+/// predator, lethal, risk), resampled by `resamples`, whose group sizes must
+/// be the lengths of the groups (else no resample is valid).
+pub fn bootstrap_share(groups: [&[f64]; 3], resamples: &Resamples) -> BootstrapInterval {
+    let mut shares = Vec::with_capacity(resamples.reps);
+    let sizes_match = groups.iter().map(|g| g.len()).eq(resamples.sizes);
+    if sizes_match && !resamples.positions.is_empty() {
+        let per_rep: usize = resamples.sizes.iter().sum();
+        for rep in resamples.positions.chunks_exact(per_rep) {
+            let mut means = [0.0f64; 3];
+            let mut at = 0;
+            for (k, values) in groups.iter().enumerate() {
+                let n = values.len();
+                let sum: f64 = rep[at..at + n].iter().map(|p| values[*p as usize]).sum();
+                means[k] = sum / n as f64;
+                at += n;
+            }
+            if let Some(share) = predator_split(means[0], means[1], means[2]).and_then(|s| s.share)
                 && share.is_finite()
             {
                 shares.push(share);
             }
         }
     }
+    let reps = resamples.reps;
     let valid = shares.len();
     let enough = reps > 0 && valid as f64 >= MIN_VALID * reps as f64;
     shares.sort_by(f64::total_cmp);
@@ -180,17 +217,8 @@ pub fn bootstrap_share(
         valid,
         low: enough.then(|| quantile(&shares, 0.025)),
         high: enough.then(|| quantile(&shares, 0.975)),
-        seed,
+        seed: resamples.seed,
     }
-}
-
-fn resample_mean(values: &[f64], rng: &mut ChaCha8Rng) -> f64 {
-    // u32 draws keep the stream the same on 32- and 64-bit machines.
-    let n = values.len() as u32;
-    let sum: f64 = (0..n)
-        .map(|_| values[rng.random_range(0..n) as usize])
-        .sum();
-    sum / f64::from(n)
 }
 
 /// The `p` quantile of sorted values by linear interpolation between order
@@ -203,13 +231,13 @@ pub fn quantile(sorted: &[f64], p: f64) -> f64 {
     sorted[lo] + (h - lo as f64) * (sorted[hi] - sorted[lo])
 }
 
-/// The seed of the bootstrap stream of one response and day: the base seed
-/// mixed with an FNV-1a hash of the response name and the day, so an
+/// The seed of a bootstrap stream: the base seed mixed with an FNV-1a hash
+/// of what the stream resamples (the day and the cages of each group), so an
 /// interval does not depend on which other responses were analysed.
-pub fn stream_seed(base: u64, response: &str, day: i64) -> u64 {
+pub fn stream_seed(base: u64, key: &str) -> u64 {
     // FNV-1a, 64 bit (Fowler, Noll & Vo; common practice).
     let mut h: u64 = 0xcbf2_9ce4_8422_2325;
-    for b in response.bytes().chain(day.to_le_bytes()) {
+    for b in key.bytes() {
         h ^= u64::from(b);
         h = h.wrapping_mul(0x0000_0100_0000_01b3);
     }
@@ -345,8 +373,7 @@ pub(crate) fn split_row(
     none: Group<'_>,
     lethal: Group<'_>,
     risk: Group<'_>,
-    reps: usize,
-    base_seed: u64,
+    resamples: &Resamples,
 ) -> SplitRow {
     let split = predator_split(none.summary.mean, lethal.summary.mean, risk.summary.mean);
     let v = |s: &Summary| variance_term(s);
@@ -355,8 +382,7 @@ pub(crate) fn split_row(
     let total = split.map(|s| with_interval(s.total, sum(vl, vn)));
     let nce = split.map(|s| with_interval(s.nonconsumptive, sum(vr, vn)));
     let ce = split.map(|s| with_interval(s.consumptive, sum(vl, vr)));
-    let seed = stream_seed(base_seed, response, day);
-    let boot = bootstrap_share(none.values, lethal.values, risk.values, reps, seed);
+    let boot = bootstrap_share([none.values, lethal.values, risk.values], resamples);
     let mut notes = Vec::new();
     for (name, s) in [
         (none.code, none.summary),
@@ -493,15 +519,19 @@ mod tests {
         let none = [78.0, 82.0, 80.0, 79.0, 81.0, 80.0];
         let lethal = [118.0, 122.0, 120.0, 119.0, 121.0, 120.0];
         let risk = [108.0, 112.0, 110.0, 109.0, 111.0, 110.0];
-        let a = bootstrap_share(&none, &lethal, &risk, 500, 7);
-        let b = bootstrap_share(&none, &lethal, &risk, 500, 7);
+        let draw = |seed| Resamples::draw([6, 6, 6], 500, seed);
+        let a = bootstrap_share([&none, &lethal, &risk], &draw(7));
+        let b = bootstrap_share([&none, &lethal, &risk], &draw(7));
         assert_eq!(a, b, "same seed, same interval");
         assert_eq!(a.valid, 500);
         let (lo, hi) = (a.low.unwrap(), a.high.unwrap());
         // The point estimate (0.785404, REFERENCES.md §5) lies inside.
         assert!(lo < 0.785404 && 0.785404 < hi, "[{lo}, {hi}]");
-        let c = bootstrap_share(&none, &lethal, &risk, 500, 8);
+        let c = bootstrap_share([&none, &lethal, &risk], &draw(8));
         assert_ne!(a.low, c.low, "another seed, another stream");
+        // Resamples drawn for other group sizes fit no group: no interval.
+        let wrong = bootstrap_share([&none, &lethal, &risk], &Resamples::draw([5, 6, 6], 500, 7));
+        assert_eq!((wrong.valid, wrong.low), (0, None));
     }
 
     #[test]
@@ -524,8 +554,7 @@ mod tests {
             g("S", &vn, &sn),
             g("SB", &vl, &sl),
             g("SR", &vr, &sr),
-            200,
-            1,
+            &Resamples::draw([4, 4, 4], 200, 1),
         );
         assert!(
             row.note
@@ -547,10 +576,10 @@ mod tests {
     }
 
     #[test]
-    fn stream_seeds_differ_by_response_and_day() {
-        let a = stream_seed(1, "cover.total", 14);
-        assert_ne!(a, stream_seed(1, "cover.total", 28));
-        assert_ne!(a, stream_seed(1, "damage.index", 14));
-        assert_eq!(a, stream_seed(1, "cover.total", 14));
+    fn stream_seeds_differ_by_key_and_base() {
+        let a = stream_seed(1, "14|C-01,C-05|C-02|C-03");
+        assert_ne!(a, stream_seed(1, "28|C-01,C-05|C-02|C-03"));
+        assert_ne!(a, stream_seed(2, "14|C-01,C-05|C-02|C-03"));
+        assert_eq!(a, stream_seed(1, "14|C-01,C-05|C-02|C-03"));
     }
 }

@@ -38,6 +38,57 @@ pub use survival::MissingRule;
 
 use season::Season;
 
+/// The cages of one treatment with a value of a response on a day, in label
+/// order, and their values.
+#[derive(Debug, Default)]
+struct CageValues {
+    cages: Vec<usize>,
+    values: Vec<f64>,
+}
+
+/// The values of one response on one day, by treatment, and their summaries.
+#[derive(Debug)]
+struct ResponseDay {
+    name: usize,
+    day: i64,
+    by_treatment: BTreeMap<usize, CageValues>,
+    summaries: BTreeMap<usize, summary::Summary>,
+}
+
+/// Response names, interned.
+#[derive(Debug, Default)]
+struct Names {
+    names: Vec<String>,
+    ids: std::collections::HashMap<String, usize>,
+}
+
+impl Names {
+    /// The id of a name, added if new.
+    fn id(&mut self, name: &str) -> usize {
+        if let Some(id) = self.ids.get(name) {
+            return *id;
+        }
+        self.names.push(name.to_owned());
+        self.ids.insert(name.to_owned(), self.names.len() - 1);
+        self.names.len() - 1
+    }
+
+    fn name(&self, id: usize) -> &str {
+        &self.names[id]
+    }
+
+    /// Each id's position in name order.
+    fn ranks(&self) -> Vec<usize> {
+        let mut order: Vec<usize> = (0..self.names.len()).collect();
+        order.sort_by(|a, b| self.names[*a].cmp(&self.names[*b]));
+        let mut rank = vec![0; order.len()];
+        for (position, id) in order.into_iter().enumerate() {
+            rank[id] = position;
+        }
+        rank
+    }
+}
+
 /// Plain-word notes on how the data were handled.
 pub(crate) type Notes = Vec<String>;
 
@@ -200,109 +251,124 @@ pub fn analyse(store: &Store, options: &Options) -> Result<Results> {
     let cage_survival = survival::cage_survival_rows(&season, &histories, options.missing_as)?;
     let survival_curve = survival::survival_curve_rows(&season, &histories, options.missing_as)?;
 
-    // Every response per cage and day.
+    // Every response per cage and day. Names are interned: a large season
+    // has hundreds of thousands of values but only a few dozen responses.
     let cage_of: std::collections::HashMap<EnclosureId, usize> = season
         .cages
         .iter()
         .enumerate()
         .map(|(i, c)| (c.id, i))
         .collect();
-    let season_cage = |id: EnclosureId| cage_of.get(&id).copied().unwrap_or_default();
-    let mut values: Vec<(String, i64, usize, f64)> = Vec::new();
+    let cage_index = |id: EnclosureId| cage_of.get(&id).copied().unwrap_or_default();
+    let mut names = Names::default();
+    let mut values: Vec<(usize, i64, usize, f64)> = Vec::new();
+    let mut by_group = std::collections::HashMap::new();
     for g in &group_cover {
-        let cage = season_cage(g.cage.enclosure_id);
-        values.push((
-            format!("{}{}", response::COVER_GROUP, g.plant_group),
-            g.day,
-            cage,
-            g.cover_pct,
-        ));
+        let name = *by_group
+            .entry(g.plant_group)
+            .or_insert_with(|| names.id(&format!("{}{}", response::COVER_GROUP, g.plant_group)));
+        values.push((name, g.day, cage_index(g.cage.enclosure_id), g.cover_pct));
     }
+    let mut by_taxon = std::collections::HashMap::new();
     for s in &species_cover {
-        let cage = season_cage(s.cage.enclosure_id);
-        values.push((
-            format!("{}{}", response::COVER_TAXON, s.taxon),
-            s.day,
-            cage,
-            s.cover_pct,
-        ));
+        let name = *by_taxon
+            .entry(s.taxon.as_str())
+            .or_insert_with(|| names.id(&format!("{}{}", response::COVER_TAXON, s.taxon)));
+        values.push((name, s.day, cage_index(s.cage.enclosure_id), s.cover_pct));
     }
+    let total = names.id(response::COVER_TOTAL);
+    let indices = [
+        "richness",
+        "shannon",
+        "pielou",
+        "simpson",
+        "gini_simpson",
+        "inverse_simpson",
+        "hill_1",
+    ]
+    .map(|index| names.id(&format!("{}{index}", response::DIVERSITY)));
     for d in &diversity {
-        let cage = season_cage(d.cage.enclosure_id);
+        let cage = cage_index(d.cage.enclosure_id);
         let i = &d.index;
-        values.push((
-            response::COVER_TOTAL.to_owned(),
-            d.day,
-            cage,
-            i.total_cover_pct,
-        ));
-        for (name, value) in [
-            ("richness", Some(i.richness as f64)),
-            ("shannon", i.shannon),
-            ("pielou", i.pielou),
-            ("simpson", i.simpson),
-            ("gini_simpson", i.gini_simpson),
-            ("inverse_simpson", i.inverse_simpson),
-            ("hill_1", i.hill_1),
-        ] {
+        values.push((total, d.day, cage, i.total_cover_pct));
+        let index_values = [
+            Some(i.richness as f64),
+            i.shannon,
+            i.pielou,
+            i.simpson,
+            i.gini_simpson,
+            i.inverse_simpson,
+            i.hill_1,
+        ];
+        for (name, value) in indices.iter().zip(index_values) {
             if let Some(v) = value {
-                values.push((format!("{}{name}", response::DIVERSITY), d.day, cage, v));
+                values.push((*name, d.day, cage, v));
             }
         }
     }
+    let (damage_index, damage_mean) = (
+        names.id(response::DAMAGE_INDEX),
+        names.id(response::DAMAGE_MEAN),
+    );
     for vd in &damage {
         let (index, mean) = herbivory::summarise_leaves(&vd.all());
         if let Some(v) = index {
-            values.push((response::DAMAGE_INDEX.to_owned(), vd.day, vd.cage, v));
+            values.push((damage_index, vd.day, vd.cage, v));
         }
         if let Some(v) = mean {
-            values.push((response::DAMAGE_MEAN.to_owned(), vd.day, vd.cage, v));
+            values.push((damage_mean, vd.day, vd.cage, v));
         }
     }
     for ((cage, code), s) in &histories {
+        let name = names.id(&format!("{}{code}", response::SURVIVAL));
         for c in &s.history.censuses {
-            values.push((
-                format!("{}{code}", response::SURVIVAL),
-                c.day,
-                *cage,
-                c.survival,
-            ));
+            values.push((name, c.day, *cage, c.survival));
         }
     }
-    values.sort_by(|a, b| {
-        (&a.0, a.1, &season.cages[a.2].label).cmp(&(&b.0, b.1, &season.cages[b.2].label))
-    });
+    // Order: response name, day, cage label (cages are held in label order).
+    let rank = names.ranks();
+    values.sort_by_key(|(name, day, cage, _)| (rank[*name], *day, *cage));
     let cage_response: Vec<CageResponse> = values
         .iter()
-        .map(|(r, day, cage, v)| CageResponse {
+        .map(|(name, day, cage, v)| CageResponse {
             cage: CageRef::of(&season, *cage),
-            response: r.clone(),
+            response: names.name(*name).to_owned(),
             day: *day,
             value: *v,
         })
         .collect();
 
     // Cage values per (response, day) and treatment, cages in label order.
-    let mut groups: BTreeMap<(String, i64), BTreeMap<usize, Vec<f64>>> = BTreeMap::new();
-    for (r, day, cage, v) in &values {
-        if let Some(t) = season.cages[*cage].treatment {
-            groups
-                .entry((r.clone(), *day))
-                .or_default()
-                .entry(t)
-                .or_default()
-                .push(*v);
+    let mut groups: Vec<ResponseDay> = Vec::new();
+    for (name, day, cage, v) in &values {
+        let Some(t) = season.cages[*cage].treatment else {
+            continue;
+        };
+        if groups
+            .last()
+            .is_none_or(|g| (g.name, g.day) != (*name, *day))
+        {
+            groups.push(ResponseDay {
+                name: *name,
+                day: *day,
+                by_treatment: BTreeMap::new(),
+                summaries: BTreeMap::new(),
+            });
+        }
+        if let Some(g) = groups.last_mut() {
+            let cv = g.by_treatment.entry(t).or_default();
+            cv.cages.push(*cage);
+            cv.values.push(*v);
         }
     }
     let mut treatment_summary = Vec::new();
-    let mut summaries: BTreeMap<(String, i64), BTreeMap<usize, summary::Summary>> = BTreeMap::new();
-    for ((r, day), by_treatment) in &groups {
-        for (t, vals) in by_treatment {
-            if let Some(s) = summary::summarise(vals)? {
+    for g in &mut groups {
+        for (t, cv) in &g.by_treatment {
+            if let Some(s) = summary::summarise(&cv.values)? {
                 let treatment = &season.treatments[*t];
                 treatment_summary.push(TreatmentSummaryRow {
-                    response: r.clone(),
-                    day: *day,
+                    response: names.name(g.name).to_owned(),
+                    day: g.day,
                     treatment_id: treatment.id,
                     treatment: treatment.code.clone(),
                     n: s.n as i64,
@@ -312,10 +378,7 @@ pub fn analyse(store: &Store, options: &Options) -> Result<Results> {
                     ci_low: s.ci_low,
                     ci_high: s.ci_high,
                 });
-                summaries
-                    .entry((r.clone(), *day))
-                    .or_default()
-                    .insert(*t, s);
+                g.summaries.insert(*t, s);
             }
         }
     }
@@ -346,39 +409,86 @@ pub fn analyse(store: &Store, options: &Options) -> Result<Results> {
                 .flat_map(move |t| cs.iter().map(move |k| (*c, *t, *k)))
         })
         .collect();
+    fn group<'a>(season: &'a Season, g: &'a ResponseDay, t: usize) -> Option<effects::Group<'a>> {
+        Some(effects::Group {
+            code: &season.treatments[t].code,
+            values: &g.by_treatment.get(&t)?.values,
+            summary: g.summaries.get(&t)?,
+        })
+    }
     let mut effect = Vec::new();
-    let mut predator_split = Vec::new();
-    for (key, by_treatment) in &summaries {
-        let group = |t: usize| -> Option<effects::Group<'_>> {
-            Some(effects::Group {
-                code: &season.treatments[t].code,
-                values: groups.get(key)?.get(&t)?,
-                summary: by_treatment.get(&t)?,
-            })
-        };
+    // Splits wait for their bootstrap: (stream key, response-day, treatments).
+    let mut split_jobs: Vec<(String, usize, [usize; 3])> = Vec::new();
+    for (i, g) in groups.iter().enumerate() {
+        let response = names.name(g.name);
         for (contrast, t, c) in &pairs {
-            if let (Some(tg), Some(cg)) = (group(*t), group(*c)) {
-                effect.push(effects::effect_row(&key.0, key.1, *contrast, tg, cg));
+            if let (Some(tg), Some(cg)) = (group(&season, g, *t), group(&season, g, *c)) {
+                effect.push(effects::effect_row(response, g.day, *contrast, tg, cg));
             }
         }
         for n in &no_predator {
             for l in &lethal {
                 for k in &risk {
-                    if let (Some(ng), Some(lg), Some(rg)) = (group(*n), group(*l), group(*k)) {
-                        predator_split.push(effects::split_row(
-                            &key.0,
-                            key.1,
-                            ng,
-                            lg,
-                            rg,
-                            options.bootstrap_reps,
-                            options.bootstrap_seed,
-                        ));
+                    let trio = [*n, *l, *k];
+                    if trio.iter().any(|t| !g.summaries.contains_key(t)) {
+                        continue;
                     }
+                    // The stream is keyed by the day and the cages resampled, so
+                    // every response measured on the same cages shares one draw.
+                    let labels: Vec<String> = trio
+                        .iter()
+                        .map(|t| {
+                            g.by_treatment[t]
+                                .cages
+                                .iter()
+                                .map(|c| season.cages[*c].label.as_str())
+                                .collect::<Vec<_>>()
+                                .join(",")
+                        })
+                        .collect();
+                    split_jobs.push((format!("{}|{}", g.day, labels.join("|")), i, trio));
                 }
             }
         }
     }
+    split_jobs.sort_by(|a, b| a.0.cmp(&b.0));
+    let mut predator_split = Vec::new();
+    let mut resamples: Option<(String, effects::Resamples)> = None;
+    for (stream, i, [n, l, k]) in split_jobs {
+        let g = &groups[i];
+        let (Some(ng), Some(lg), Some(rg)) = (
+            group(&season, g, n),
+            group(&season, g, l),
+            group(&season, g, k),
+        ) else {
+            continue;
+        };
+        if resamples.as_ref().is_none_or(|(s, _)| *s != stream) {
+            let sizes = [ng.values.len(), lg.values.len(), rg.values.len()];
+            let seed = effects::stream_seed(options.bootstrap_seed, &stream);
+            let draw = effects::Resamples::draw(sizes, options.bootstrap_reps, seed);
+            resamples = Some((stream, draw));
+        }
+        if let Some((_, draw)) = &resamples {
+            predator_split.push(effects::split_row(
+                names.name(g.name),
+                g.day,
+                ng,
+                lg,
+                rg,
+                draw,
+            ));
+        }
+    }
+    predator_split.sort_by(|a, b| {
+        (&a.response, a.day, &a.no_predator, &a.lethal, &a.risk).cmp(&(
+            &b.response,
+            b.day,
+            &b.no_predator,
+            &b.lethal,
+            &b.risk,
+        ))
+    });
 
     Ok(Results {
         options: *options,

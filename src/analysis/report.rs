@@ -256,7 +256,8 @@ pub fn render(r: &Results) -> String {
          and Okuyama & Bolker 2007 for when that fails. The share is unstable when the total is \
          near 0 (flagged when the total's 95 % interval includes 0). Its interval is a percentile \
          bootstrap: {} resamples of cages with replacement within each treatment, seeded \
-         (base seed {}, one ChaCha8 stream per response and day, seed in each row).\n\n",
+         (base seed {}; one ChaCha8 stream per day and set of cages, shared by every response \
+         measured on those cages; the seed is in each row).\n\n",
         r.options.bootstrap_reps, r.options.bootstrap_seed
     );
 

@@ -902,4 +902,54 @@ mod tests {
         .to_string();
         assert!(err.contains("spell.exit") && err.contains("\"5\""), "{err}");
     }
+
+    proptest::proptest! {
+        /// Kaplan–Meier never rises, stays within [0, 1], and its interval
+        /// holds the estimate (Kaplan & Meier 1958).
+        #[test]
+        fn kaplan_meier_is_a_survival_curve(
+            animals in proptest::collection::vec((0u8..10, 1u8..30, proptest::bool::ANY), 1..80)
+        ) {
+            let spells: Vec<Spell> = animals
+                .iter()
+                .map(|(entry, length, event)| Spell {
+                    entry: f64::from(*entry),
+                    exit: f64::from(*entry) + f64::from(*length),
+                    count: 1,
+                    event: *event,
+                })
+                .collect();
+            let km = kaplan_meier(&spells).unwrap();
+            let mut previous = 1.0;
+            for s in &km {
+                proptest::prop_assert!(s.survival <= previous && s.survival >= 0.0);
+                proptest::prop_assert!(s.events + s.censored <= s.at_risk);
+                if let (Some(lo), Some(hi)) = (s.ci_low, s.ci_high) {
+                    proptest::prop_assert!(lo <= s.survival + 1e-12 && s.survival <= hi + 1e-12);
+                }
+                previous = s.survival;
+            }
+        }
+
+        /// Counted animals: the cage's proportion recovered never rises and
+        /// equals N_t / N_0 when nothing is restocked (common practice).
+        #[test]
+        fn proportion_recovered_is_alive_over_stocked_without_restocking(
+            losses in proptest::collection::vec(0u64..4, 1..10)
+        ) {
+            let mut events = vec![Handling::Added { day: 0, count: 30 }];
+            let mut alive = 30u64;
+            for (i, l) in losses.iter().enumerate() {
+                alive = alive.saturating_sub(*l);
+                events.push(Handling::Counted { day: 3 * (i as i64 + 1), alive, dead: None });
+            }
+            let h = cage_history(&events, MissingRule::Dead);
+            if let Some(last) = h.censuses.last() {
+                proptest::prop_assert!((last.survival - alive as f64 / 30.0).abs() < 1e-12);
+            }
+            for w in h.censuses.windows(2) {
+                proptest::prop_assert!(w[1].survival <= w[0].survival);
+            }
+        }
+    }
 }

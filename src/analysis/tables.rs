@@ -113,4 +113,17 @@ mod tests {
         assert_eq!(fixed(-1e-12).to_string(), "0");
         assert_eq!(fixed(2.0 / 3.0).to_string(), "0.666666667");
     }
+
+    proptest::proptest! {
+        /// Fixed decimals are stable: rounding again changes nothing, and the
+        /// written text reads back as the same number.
+        #[test]
+        fn fixed_numbers_are_stable(x in -1.0e6f64..1.0e6) {
+            let y = fixed(x);
+            proptest::prop_assert_eq!(fixed(y).to_bits(), y.to_bits());
+            proptest::prop_assert!((y - x).abs() <= 0.5e-9 + 1e-9 * x.abs() * 1e-6);
+            let text = crate::tables::format_number(y);
+            proptest::prop_assert_eq!(text.parse::<f64>().unwrap().to_bits(), y.to_bits());
+        }
+    }
 }
