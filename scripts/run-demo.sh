@@ -1,7 +1,8 @@
 #!/usr/bin/env bash
-# Builds fieldcage, creates the invented demo season in demo-run/demo.db, prints
-# the cage layout and exports the tidy tables to demo-run/export/.
-# Installs what it needs first. Each run starts from a fresh demo database.
+# Builds fieldcage and serves the invented demo season: creates
+# demo-run/demo.db afresh, prints the cage layout, exports the tidy tables to
+# demo-run/export/, then serves the tablet UI at http://127.0.0.1:8088/ on
+# day 21 of the demo season (Ctrl-C to stop). Installs what it needs first.
 set -euo pipefail
 cd "$(dirname "$0")/.."
 
@@ -35,4 +36,6 @@ say "layout: blocks, cages and treatments"
 
 say "exporting the tidy tables to demo-run/export/"
 "$bin" export --db demo-run/demo.db --out demo-run/export
-ls demo-run/export
+
+say "serving the tablet UI on day 21 of the demo season (open the address below; Ctrl-C to stop)"
+exec "$bin" serve --db demo-run/demo.db --port "${PORT:-8088}" --today 2026-06-01

@@ -49,6 +49,48 @@ say "data package validated by frictionless (pytest tests/python)"
 cargo build --locked --quiet
 FIELDCAGE_BIN="$PWD/target/debug/fieldcage" .venv/bin/python -m pytest -q tests/python
 
+say "browser end-to-end tests: Debian chromium + playwright-core (tests/e2e)"
+if [ ! -x /usr/bin/chromium ]; then
+  if [ "$(id -u)" = 0 ] && command -v apt-get >/dev/null 2>&1; then
+    say "installing Debian's chromium for the browser tests (apt-get install chromium)"
+    apt-get update -qq && apt-get install -y --no-install-recommends chromium fonts-dejavu-core
+  else
+    echo "the browser tests need Debian's chromium at /usr/bin/chromium (apt-get install chromium)" >&2
+    exit 1
+  fi
+fi
+if ! command -v npm >/dev/null 2>&1; then
+  echo "the browser tests need Node.js 20 with npm" >&2
+  exit 1
+fi
+# playwright-core never downloads a browser; it drives /usr/bin/chromium.
+(cd tests/e2e && npm ci --no-audit --no-fund --loglevel=error)
+rm -rf test-artifacts/e2e
+FIELDCAGE_BIN="$PWD/target/debug/fieldcage" node --test --test-concurrency=1 tests/e2e/
+echo "screenshots: test-artifacts/e2e/"
+
+say "tablet app (src-tauri): system packages for Tauri 2 on Linux"
+if ! pkg-config --exists webkit2gtk-4.1 2>/dev/null || ! command -v WebKitWebDriver >/dev/null 2>&1 || ! command -v xvfb-run >/dev/null 2>&1; then
+  if [ "$(id -u)" = 0 ] && command -v apt-get >/dev/null 2>&1; then
+    say "installing libwebkit2gtk-4.1-dev, webkit2gtk-driver and xvfb (apt-get)"
+    apt-get update -qq && apt-get install -y --no-install-recommends libwebkit2gtk-4.1-dev webkit2gtk-driver xvfb xauth
+  else
+    echo "the tablet app needs libwebkit2gtk-4.1-dev, webkit2gtk-driver and xvfb (apt-get install ...)" >&2
+    exit 1
+  fi
+fi
+
+say "tablet app: lints and command tests without a webview (cargo test -p fieldcage-tablet)"
+cargo clippy -p fieldcage-tablet --all-targets --locked -- -D warnings
+cargo test -p fieldcage-tablet --locked
+
+say "tablet app: WebDriver end-to-end test under Xvfb (tauri-driver from crates.io into .tools/)"
+if [ ! -x .tools/bin/tauri-driver ]; then
+  cargo install --locked tauri-driver --version 2.1.0 --root .tools
+fi
+TAURI_DRIVER="$PWD/.tools/bin/tauri-driver" FIELDCAGE_TABLET="$PWD/target/debug/fieldcage-tablet" \
+  xvfb-run -a node --test tests/e2e/tablet.webdriver.mjs
+
 say "documentation builds without warnings (cargo doc)"
 RUSTDOCFLAGS="-D warnings" cargo doc --no-deps --locked --quiet
 

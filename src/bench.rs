@@ -1,13 +1,14 @@
 //! The benchmark behind `fieldcage bench`: builds a synthetic season of a
 //! given size ([`crate::synth`]) and times each stage on it: the build, the
-//! export (which includes the analysis tables), the analysis on its own and
-//! the import. Figures are
+//! day's-end checks over the whole season, the export (which includes the
+//! analysis tables), the analysis on its own and the import. Figures are
 //! wall-clock seconds of one run on this machine; run in release mode.
 
 use std::path::Path;
 use std::time::Instant;
 
 use crate::Result;
+use crate::checks::Scope;
 use crate::store::Store;
 use crate::synth::{self, SeasonSize};
 
@@ -41,6 +42,30 @@ pub fn run(size: SeasonSize, dir: &Path) -> Result<Vec<Timing>> {
         "build season through the write path",
         format!("{} cover rows", size.cover_rows()),
         &mut || synth::build(&mut store, size, 1),
+    )?;
+    // The checks run as of a day when every planned visit is due.
+    let today = chrono::NaiveDate::from_ymd_opt(2026, 4, 1)
+        .unwrap_or_default()
+        .checked_add_days(chrono::Days::new(size.visits as u64 + 7))
+        .unwrap_or_default();
+    let mut raised = 0;
+    time(
+        "day's-end checks, read and rules only (no writes)",
+        format!("{} cover rows and every visit", size.cover_rows()),
+        &mut || {
+            raised = crate::checks::check(store.conn(), &Scope::Season, today)?.len();
+            Ok(())
+        },
+    )?;
+    time(
+        "day's-end checks, first run (flags stored)",
+        format!("{raised} flags raised and stored"),
+        &mut || crate::checks::run(&mut store, &Scope::Season, today).map(drop),
+    )?;
+    time(
+        "day's-end checks again (nothing changed)",
+        format!("{raised} flags reconciled"),
+        &mut || crate::checks::run(&mut store, &Scope::Season, today).map(drop),
     )?;
     let changes = store.change_count()?;
     let export_dir = dir.join("export");

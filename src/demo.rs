@@ -20,7 +20,7 @@ use crate::model::*;
 use crate::record::{self, CoverEntry, CoverTarget, DamageEntry, NewVisit};
 use crate::setup::{self, Definition};
 use crate::store::{Store, Writer};
-use crate::{Error, Result};
+use crate::{Error, Result, checks};
 
 /// The demo definition file, as shipped.
 pub const DEFINITION: &str = include_str!("../demo_data/definition.toml");
@@ -47,7 +47,14 @@ pub struct PlantedProblem {
     pub what: &'static str,
 }
 
-/// Build the whole demo season into an empty database.
+/// The crew lead's note on the one flag the demo confirms: the slug in the
+/// plants-only cage was real (invented).
+pub const CONFIRMATION_NOTE: &str = "The slug was really there: it came in under the rim where the mesh had lifted after rain. Removed, rim pegged down.";
+
+/// Build the whole demo season into an empty database, run the day's-end
+/// checks as of the end of the season and confirm the contamination flag
+/// (the crew lead's day's-end work), so that the demo holds flags of every
+/// status the data allow.
 pub fn build(store: &mut Store) -> Result<Vec<PlantedProblem>> {
     let def = definition()?;
     store.use_seeded_ids(RECORD_SEED, start_millis(&def));
@@ -55,7 +62,43 @@ pub fn build(store: &mut Store) -> Result<Vec<PlantedProblem>> {
     let season = Season::load(store, &def)?;
     let problems = season.plan_problems();
     store.write(|w| season.record(w, &problems))?;
+    let report = checks::run(store, &checks::Scope::Season, check_day(&def))?;
+    if let Some(flag) = report
+        .flags
+        .iter()
+        .find(|f| f.rule_id == checks::counts::CONTAMINATION.id)
+    {
+        checks::confirm(store, &flag.id.to_string(), CONFIRMATION_NOTE)?;
+    }
     Ok(problems)
+}
+
+/// Open the database at `path`, building the demo season into it when it holds
+/// no experiment yet (a new file). Used by `fieldcage serve --demo` and the
+/// tablet app's `--demo`.
+pub fn open_or_build(path: &Path) -> Result<Store> {
+    let mut store = Store::open(path)?;
+    let experiments: i64 = store.conn().query_row(
+        "SELECT count(*) FROM experiment WHERE deleted = 0",
+        [],
+        |r| r.get(0),
+    )?;
+    if experiments == 0 {
+        build(&mut store)?;
+    }
+    Ok(store)
+}
+
+/// The day the demo's checks run as of: the last day any planned visit is
+/// on time, so that every visit is due and none is in the future.
+pub fn check_day(def: &Definition) -> NaiveDate {
+    let last = def
+        .schedule
+        .iter()
+        .map(|(_, day, grace)| day + grace)
+        .max()
+        .unwrap_or(0);
+    def.start_date() + Duration::days(last)
 }
 
 /// The problems the demo plants, found from the demo's layout (which is fixed
@@ -210,7 +253,7 @@ impl Season {
             p(
                 self.cage("B2", "S"),
                 12,
-                "12 slugs counted alive where at most 10 can be",
+                "12 slugs counted alive in a cage stocked with 10",
             ),
             p(
                 self.cage("B2", "SR"),
@@ -387,6 +430,10 @@ impl Season {
                                     Some(slug_dead),
                                     Some(slug_gone),
                                 )?;
+                                if plant == Some(Plant::Contamination) {
+                                    // The crew takes the intruder out.
+                                    record::stock(w, v.id, slug, StockingKind::Removal, 1, None)?;
+                                }
                                 record::census(
                                     w,
                                     v.id,

@@ -8,12 +8,15 @@
 
 pub mod analysis;
 pub mod bench;
+pub mod checks;
 pub mod demo;
 pub mod error;
 pub mod export;
 pub mod import;
 pub mod model;
 pub mod record;
+pub mod server;
+pub mod service;
 pub mod setup;
 pub mod store;
 pub mod synth;

@@ -6,7 +6,7 @@ use std::process::ExitCode;
 
 use anyhow::Context;
 use clap::{Parser, Subcommand};
-use fieldcage::{Store, analysis, demo, export, import, setup};
+use fieldcage::{Store, analysis, checks, demo, export, import, setup};
 
 /// Offline-first field recorder for cage experiments on predators, herbivores and plants.
 #[derive(Debug, Parser)]
@@ -58,6 +58,51 @@ enum Command {
         /// Folder holding the tables.
         dir: PathBuf,
     },
+    /// Serve the tablet UI and the JSON API for a database.
+    Serve {
+        /// The database file (with --demo: the demo season is built into it if it holds no experiment).
+        #[arg(long)]
+        db: PathBuf,
+        /// Build the invented demo season first when the database does not exist.
+        #[arg(long)]
+        demo: bool,
+        /// Port to listen on.
+        #[arg(long, default_value_t = 8088)]
+        port: u16,
+        /// Open the route on this field day instead of today (YYYY-MM-DD).
+        #[arg(long)]
+        today: Option<chrono::NaiveDate>,
+        /// Listen on every network interface, protected by a random token
+        /// (only on a network you trust).
+        #[arg(long)]
+        lan: bool,
+    },
+    /// Day's-end checks: raise, store and list the flags (exit 1 while an
+    /// error is open); or confirm a flag with a note.
+    #[command(group(clap::ArgGroup::new("scope").args(["day", "all", "cage"])))]
+    Check {
+        /// The database file.
+        #[arg(long)]
+        db: PathBuf,
+        /// Check one day (local date YYYY-MM-DD); the default is today.
+        #[arg(long, value_name = "YYYY-MM-DD")]
+        day: Option<chrono::NaiveDate>,
+        /// Check the whole season.
+        #[arg(long)]
+        all: bool,
+        /// Check one cage over the whole season (its label).
+        #[arg(long, value_name = "LABEL")]
+        cage: Option<String>,
+        /// Print the flags as JSON.
+        #[arg(long)]
+        json: bool,
+        /// Confirm this flag (its id, or the last characters printed) instead of checking.
+        #[arg(long, value_name = "FLAG_ID", requires = "note", conflicts_with_all = ["scope", "json"])]
+        confirm: Option<String>,
+        /// Why the confirmed flag's data are right as recorded.
+        #[arg(long, value_name = "TEXT", requires = "confirm")]
+        note: Option<String>,
+    },
     /// Print the effect table: log response ratios of each contrast and the
     /// consumptive / non-consumptive split of the predator effect.
     Results {
@@ -95,7 +140,7 @@ enum Command {
 
 fn main() -> ExitCode {
     match run(Cli::parse()) {
-        Ok(()) => ExitCode::SUCCESS,
+        Ok(code) => code,
         Err(e) => {
             eprintln!("fieldcage: {e:#}");
             ExitCode::from(2)
@@ -118,7 +163,9 @@ fn existing_database(db: &PathBuf) -> anyhow::Result<Store> {
     Store::open(db).with_context(|| format!("opening {}", db.display()))
 }
 
-fn run(cli: Cli) -> anyhow::Result<()> {
+/// Run a command; `Ok` carries the exit code of a command that ran (1 when
+/// `check` leaves errors open).
+fn run(cli: Cli) -> anyhow::Result<ExitCode> {
     match cli.command {
         Command::Init {
             db,
@@ -149,11 +196,17 @@ fn run(cli: Cli) -> anyhow::Result<()> {
         Command::Demo { db } => {
             let mut store = new_database(&db)?;
             let problems = demo::build(&mut store)?;
+            let flags = store.list::<fieldcage::model::StoredFlag>()?;
+            let confirmed = flags
+                .iter()
+                .filter(|f| f.status == fieldcage::model::FlagStatus::Confirmed)
+                .count();
             println!(
-                "built the demo season in {} ({} changes logged; {} deliberate problems planted for the checks)",
+                "built the demo season in {} ({} changes logged; {} deliberate problems planted for the checks, which raised {} flags, {confirmed} of them confirmed)",
                 db.display(),
                 store.change_count()?,
-                problems.len()
+                problems.len(),
+                flags.len()
             );
         }
         Command::Export { db, out } => {
@@ -178,6 +231,54 @@ fn run(cli: Cli) -> anyhow::Result<()> {
                 summary.tables.len(),
                 db.display()
             );
+        }
+        Command::Serve {
+            db,
+            demo,
+            port,
+            today,
+            lan,
+        } => {
+            let store = if demo {
+                demo::open_or_build(&db).with_context(|| format!("opening {}", db.display()))?
+            } else {
+                existing_database(&db)?
+            };
+            let mut service = fieldcage::service::Service::new(store);
+            if let Some(day) = today {
+                service = service.with_today(day);
+            }
+            let (ip, guard) = if lan {
+                (
+                    std::net::IpAddr::from([0, 0, 0, 0]),
+                    fieldcage::server::Guard::lan(),
+                )
+            } else {
+                (
+                    std::net::IpAddr::from([127, 0, 0, 1]),
+                    fieldcage::server::Guard::loopback(port),
+                )
+            };
+            let addr = std::net::SocketAddr::new(ip, port);
+            match &guard.token {
+                Some(token) => println!(
+                    "fieldcage is serving {} on every interface, port {port}.\n\
+                     Open http://<this-device-address>:{port}/#token={token} on a device you trust.",
+                    db.display()
+                ),
+                None => println!(
+                    "fieldcage is serving {}.\nOpen http://127.0.0.1:{port}/ (Ctrl-C to stop)",
+                    db.display()
+                ),
+            }
+            let runtime = tokio::runtime::Runtime::new().context("starting the server runtime")?;
+            runtime
+                .block_on(fieldcage::server::serve(
+                    std::sync::Arc::new(service),
+                    addr,
+                    guard,
+                ))
+                .with_context(|| format!("serving on {addr}"))?;
         }
         Command::Results {
             db,
@@ -223,8 +324,55 @@ fn run(cli: Cli) -> anyhow::Result<()> {
             let timings = fieldcage::bench::run(size, dir.path())?;
             print!("{}", fieldcage::bench::format_table(size, &timings));
         }
+        Command::Check {
+            db,
+            day,
+            all,
+            cage,
+            json,
+            confirm,
+            note,
+        } => {
+            let mut store = existing_database(&db)?;
+            if let Some(flag) = confirm {
+                let f = checks::confirm(&mut store, &flag, note.as_deref().unwrap_or_default())?;
+                println!(
+                    "confirmed flag {} ({}, {}, day {}): {}\nnote: {}",
+                    f.id,
+                    f.rule_id,
+                    f.cage,
+                    f.day,
+                    f.message,
+                    f.note.unwrap_or_default()
+                );
+                return Ok(ExitCode::SUCCESS);
+            }
+            let today = checks::today(store.conn())?;
+            let scope = match (day, all, cage) {
+                (Some(day), _, _) => checks::Scope::Day(day),
+                (_, true, _) => checks::Scope::Season,
+                (_, _, Some(label)) => checks::Scope::Cage(label),
+                _ => checks::Scope::Day(today),
+            };
+            let report = checks::run(&mut store, &scope, today)?;
+            if json {
+                println!("{}", serde_json::to_string_pretty(&report)?);
+            } else {
+                print!("{}", checks::format_report(&report));
+                if report.has_open_errors() {
+                    println!(
+                        "\n{} open error(s): fix the data and check again, or confirm a flag that is right as recorded:\n  fieldcage check --db {} --confirm FLAG_ID --note \"why it is right\"",
+                        report.open_errors,
+                        db.display()
+                    );
+                }
+            }
+            if report.has_open_errors() {
+                return Ok(ExitCode::from(1));
+            }
+        }
     }
-    Ok(())
+    Ok(ExitCode::SUCCESS)
 }
 
 /// Remove a database that `init` created but could not fill.

@@ -1,7 +1,11 @@
 //! Synthetic seasons of any size, for benchmarks and scale tests: blocks of
-//! four cages (the demo's four treatments), `species` plants, and `visits`
-//! visits of each kind. Seeded, so a size always gives the same season.
-//! Numbers are random draws, not a model of anything.
+//! four cages (the demo's four treatments), `species` plants, a stocking visit
+//! on day 0 and `visits` visits of each other kind. Seeded, so a size always
+//! gives the same season. Numbers are random draws, not a model of anything;
+//! they are drawn within what the day's-end checks accept (counts within what
+//! was stocked, no animals where the treatment has none, little damage without
+//! herbivores), so the flags of a synthetic season are the few that chance
+//! makes (cover totals above 100 %), as in a well-kept real season.
 
 use std::fmt::Write as _;
 use std::path::Path;
@@ -122,10 +126,20 @@ pub fn build(store: &mut Store, size: SeasonSize, seed: u64) -> Result<()> {
         .filter(|t| t.role == Role::Plant)
         .map(|t| t.id)
         .collect();
-    let assigned: std::collections::HashMap<EnclosureId, TreatmentId> = store
+    let animals: Vec<TaxonId> = taxa
+        .iter()
+        .filter(|t| t.role != Role::Plant)
+        .map(|t| t.id)
+        .collect();
+    let treatment_of: std::collections::HashMap<EnclosureId, TreatmentId> = store
         .list::<Assignment>()?
         .into_iter()
         .map(|a| (a.enclosure_id, a.treatment_id))
+        .collect();
+    let herbivores: std::collections::HashMap<TreatmentId, bool> = store
+        .list::<Treatment>()?
+        .into_iter()
+        .map(|t| (t.id, t.herbivores))
         .collect();
     let plans = store.list::<StockingPlan>()?;
     let start =
@@ -154,6 +168,24 @@ pub fn build(store: &mut Store, size: SeasonSize, seed: u64) -> Result<()> {
                     },
                 )
             };
+            let treatment = treatment_of[&e.id];
+            let stocked: Vec<(TaxonId, i64)> = animals
+                .iter()
+                .map(|a| {
+                    let plan = plans
+                        .iter()
+                        .find(|p| p.treatment_id == treatment && p.taxon_id == *a);
+                    (*a, plan.map_or(0, |p| p.initial_count))
+                })
+                .collect();
+            let v = visit(w, VisitKind::Stocking, 0, 0)?;
+            for (a, n) in &stocked {
+                if *n > 0 {
+                    record::stock(w, v.id, *a, StockingKind::Initial, *n, None)?;
+                }
+            }
+            // Damage accrues slowly where no herbivores were stocked.
+            let damage_step = if herbivores[&treatment] { 4.0 } else { 0.4 };
             let mut leaves = Vec::new();
             for k in 0..3 {
                 let leaf = record::tag_leaf(
@@ -167,25 +199,16 @@ pub fn build(store: &mut Store, size: SeasonSize, seed: u64) -> Result<()> {
                 leaves.push(leaf.id);
             }
             let mut damage = [0.0f64; 3];
-            // Animals of the cage's stocking plan, stocked on day 0; each
-            // census finds them or a few fewer (those not found count as missing).
-            let mut stock: Vec<(TaxonId, i64)> = plans
-                .iter()
-                .filter(|p| assigned.get(&e.id) == Some(&p.treatment_id))
-                .map(|p| (p.taxon_id, p.initial_count))
-                .collect();
-            if !stock.is_empty() {
-                let v = visit(w, VisitKind::Stocking, 0, 0)?;
-                for (taxon, count) in &stock {
-                    record::stock(w, v.id, *taxon, StockingKind::Initial, *count, None)?;
-                }
-            }
             for day in 1..=size.visits {
                 let v = visit(w, VisitKind::Census, day, 0)?;
-                for (taxon, alive) in stock.iter_mut() {
-                    let lost = i64::from(*alive > 0 && rng.random_bool(0.1));
-                    *alive -= lost;
-                    record::census(w, v.id, *taxon, Some(*alive), Some(0), Some(lost))?;
+                for (a, n) in &stocked {
+                    // Between half the stocked number (the restock threshold) and all of them.
+                    let alive = if *n > 0 {
+                        rng.random_range((n + 1) / 2..=*n)
+                    } else {
+                        0
+                    };
+                    record::census(w, v.id, *a, Some(alive), Some(0), Some(n - alive))?;
                 }
                 let v = visit(w, VisitKind::Cover, day, 1)?;
                 let mut total = 0.0;
@@ -209,7 +232,7 @@ pub fn build(store: &mut Store, size: SeasonSize, seed: u64) -> Result<()> {
                 )?;
                 let v = visit(w, VisitKind::Damage, day, 2)?;
                 for (leaf, d) in leaves.iter().zip(damage.iter_mut()) {
-                    *d = (*d + rng.random_range(0.0..4.0)).min(100.0);
+                    *d = (*d + rng.random_range(0.0..damage_step)).min(100.0);
                     let class = crate::demo::damage_class(*d);
                     record::damage(w, v.id, *leaf, DamageEntry::Class(class.into()))?;
                 }

@@ -84,6 +84,7 @@ const SOURCES: &[(&str, &str)] = &[
         "damage_record",
         include_str!("../schemas/tables/damage_record.json"),
     ),
+    ("flag", include_str!("../schemas/tables/flag.json")),
 ];
 
 /// Table Schema JSON of every analysis table (derived on export, never

@@ -127,6 +127,12 @@ fn planted_problems_show_in_the_data_handling_notes() {
         notes.contains("cage C-16: SLUG found alive on day 21 but never stocked"),
         "{notes}"
     );
+    // The stray slug is taken out again; that is no survival record either.
+    assert!(
+        notes.contains("cage C-16: SLUG removed on day 21 but never stocked"),
+        "{notes}"
+    );
+    assert!(!r.cage_survival.iter().any(|c| c.cage.enclosure == "C-16"));
     assert!(
         notes.contains("cage C-24 has more than one census visit on day 27"),
         "{notes}"

@@ -116,3 +116,111 @@ fn errors_go_to_stderr_with_a_failing_exit_code() {
     assert_eq!(again.status.code(), Some(2));
     assert!(String::from_utf8_lossy(&again.stderr).contains("already exists"));
 }
+
+fn exit_code(out: &Output) -> Option<i32> {
+    out.status.code()
+}
+
+/// Day's-end checks from the command line: exit 1 while errors are open, JSON
+/// with every field the review needs, text grouped by cage, and a flag
+/// confirmed with a note from the command line.
+#[test]
+fn check_lists_flags_and_fails_while_errors_are_open() {
+    let tmp = Temp::new();
+    let cwd = tmp.dir.path();
+    ok(&fieldcage(&["demo", "--db", "d.db"], cwd));
+
+    let out = fieldcage(&["check", "--db", "d.db", "--all", "--json"], cwd);
+    assert_eq!(exit_code(&out), Some(1), "errors are open");
+    let json: serde_json::Value = serde_json::from_slice(&out.stdout).unwrap();
+    let flags = json["flags"].as_array().unwrap();
+    assert_eq!(flags.len(), 10);
+    for f in flags {
+        for key in [
+            "id",
+            "rule_id",
+            "severity",
+            "status",
+            "cage",
+            "day",
+            "record_table",
+            "record_id",
+            "message",
+            "fix",
+        ] {
+            assert!(!f[key].is_null(), "{key} in {f}");
+        }
+    }
+    let too_many = flags
+        .iter()
+        .find(|f| f["rule_id"] == "counts.too_many")
+        .unwrap();
+    assert_eq!(
+        (too_many["cage"].as_str(), too_many["severity"].as_str()),
+        (Some("C-08"), Some("error"))
+    );
+    assert!(
+        too_many["message"]
+            .as_str()
+            .unwrap()
+            .contains("12 SLUG found alive")
+    );
+    let confirmed = flags.iter().find(|f| f["status"] == "confirmed").unwrap();
+    assert!(!confirmed["note"].as_str().unwrap().is_empty());
+
+    let text = fieldcage(&["check", "--db", "d.db", "--all"], cwd);
+    assert_eq!(exit_code(&text), Some(1));
+    let text = String::from_utf8_lossy(&text.stdout);
+    assert!(
+        text.contains("10 flags: 9 open (6 errors, 3 warnings, 0 notices), 1 confirmed"),
+        "{text}"
+    );
+    assert!(
+        text.contains("\nC-12: 3 open\n  [error] cover.total · day 14"),
+        "{text}"
+    );
+    assert!(text.contains("--confirm FLAG_ID --note"), "{text}");
+
+    // One cage whose only flag is confirmed: nothing open, exit 0.
+    let out = fieldcage(&["check", "--db", "d.db", "--cage", "C-16"], cwd);
+    assert_eq!(
+        exit_code(&out),
+        Some(0),
+        "{}",
+        String::from_utf8_lossy(&out.stderr)
+    );
+
+    // Confirm C-08's flag by the end of its id, as the text report prints it.
+    let id = too_many["id"].as_str().unwrap();
+    let short = &id[id.len() - 8..];
+    assert!(text.contains(&format!("flag {short}")), "{text}");
+    let empty = fieldcage(
+        &["check", "--db", "d.db", "--confirm", short, "--note", " "],
+        cwd,
+    );
+    assert_eq!(exit_code(&empty), Some(2));
+    assert!(String::from_utf8_lossy(&empty.stderr).contains("flag.note"));
+    let done = ok(&fieldcage(
+        &[
+            "check",
+            "--db",
+            "d.db",
+            "--confirm",
+            short,
+            "--note",
+            "Recounted: 12 is right; two slugs came in with the turf.",
+        ],
+        cwd,
+    ));
+    assert!(done.contains(&format!("confirmed flag {id}")), "{done}");
+    let out = fieldcage(&["check", "--db", "d.db", "--cage", "C-08"], cwd);
+    assert_eq!(exit_code(&out), Some(0));
+    assert!(String::from_utf8_lossy(&out.stdout).contains("note: Recounted: 12 is right"));
+
+    // Usage errors keep exit code 2.
+    let no_note = fieldcage(&["check", "--db", "d.db", "--confirm", short], cwd);
+    assert_eq!(exit_code(&no_note), Some(2));
+    let unknown = fieldcage(&["check", "--db", "d.db", "--cage", "C-99"], cwd);
+    assert_eq!(exit_code(&unknown), Some(2));
+    assert!(String::from_utf8_lossy(&unknown.stderr).contains("C-99"));
+}

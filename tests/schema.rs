@@ -141,6 +141,7 @@ fn every_record_struct_fits_its_table_schema() {
         record_round_trips::<Census>(&store),
         record_round_trips::<CoverRecord>(&store),
         record_round_trips::<DamageRecord>(&store),
+        record_round_trips::<StoredFlag>(&store),
     ];
     // One struct per table, each with rows in the demo season.
     assert_eq!(counts.len(), tables::all().len());

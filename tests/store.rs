@@ -40,7 +40,7 @@ fn migrations_bring_an_empty_file_to_the_latest_version() {
             |r| r.get(0),
         )
         .unwrap();
-    // 20 data tables (schemas/tables) + local_device + change_log.
+    // The data tables (schemas/tables) + local_device + change_log.
     assert_eq!(tables, fieldcage::tables::all().len() as i64 + 2);
 }
 

@@ -7,7 +7,9 @@
 mod util;
 
 mod analysis;
+mod api;
 mod changelog;
+mod checks;
 mod cli;
 mod demo;
 mod randomise;

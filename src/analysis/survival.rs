@@ -530,8 +530,21 @@ pub(crate) fn cage_histories(season: &Season, rule: MissingRule, notes: &mut Not
         // (day, order within day, handling): censuses (0) before stocking (1).
         let mut by_taxon: BTreeMap<TaxonId, Vec<(i64, u8, usize, Handling)>> = BTreeMap::new();
         let mut initial: BTreeMap<TaxonId, (i64, i64)> = BTreeMap::new();
-        for (seq, (day, e)) in season.stocking.get(&cage).into_iter().flatten().enumerate() {
+        let events = season.stocking.get(&cage).map_or(&[][..], |v| v.as_slice());
+        let mut unstocked: BTreeSet<String> = BTreeSet::new();
+        for (seq, (day, e)) in events.iter().enumerate() {
             let count = e.count.max(0) as u64;
+            let ever_added = events.iter().any(|(_, x)| {
+                x.taxon_id == e.taxon_id && x.kind != StockingKind::Removal && x.count > 0
+            });
+            if !ever_added {
+                // A stray animal taken out of a cage that was never stocked with it.
+                unstocked.insert(format!(
+                    "cage {label}: {} removed on day {day} but never stocked there; left out of survival",
+                    season.taxon_code(e.taxon_id)
+                ));
+                continue;
+            }
             let handling = match e.kind {
                 StockingKind::Initial | StockingKind::Restock => {
                     let totals = initial.entry(e.taxon_id).or_default();
@@ -549,7 +562,6 @@ pub(crate) fn cage_histories(season: &Season, rule: MissingRule, notes: &mut Not
                 .or_default()
                 .push((*day, 1, seq, handling));
         }
-        let mut unstocked: BTreeSet<String> = BTreeSet::new();
         for v in season
             .visits
             .iter()

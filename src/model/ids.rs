@@ -97,4 +97,6 @@ id_type! {
     CoverRecordId;
     /// Id of a damage record.
     DamageRecordId;
+    /// Id of a stored check flag.
+    FlagId;
 }

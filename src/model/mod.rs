@@ -39,6 +39,16 @@ macro_rules! string_enum {
             }
         }
 
+        impl rusqlite::types::FromSql for $name {
+            fn column_result(
+                value: rusqlite::types::ValueRef<'_>,
+            ) -> rusqlite::types::FromSqlResult<Self> {
+                value.as_str()?.parse().map_err(|e: String| {
+                    rusqlite::types::FromSqlError::Other(e.into())
+                })
+            }
+        }
+
         impl std::str::FromStr for $name {
             type Err = String;
             fn from_str(s: &str) -> Result<Self, String> {
@@ -146,6 +156,29 @@ string_enum! {
     AssignmentMethod { /// Seeded randomised complete block design.
         Rcbd = "rcbd", /// Set by hand.
         Manual = "manual", }
+}
+
+string_enum! {
+    /// Family of a day's-end check rule.
+    CheckFamily { /// Plant cover surveys.
+        Cover = "cover", /// Animal counts and stocking.
+        Counts = "counts", /// Leaf damage on tagged leaves.
+        Damage = "damage", /// Visits and their schedule.
+        Visits = "visits", }
+}
+string_enum! {
+    /// How serious a flag is (most serious first, so that sorting puts errors first).
+    Severity { /// Cannot be right as recorded: fix it, or confirm it with a note.
+        Error = "error", /// Unusual: worth a look.
+        Warning = "warning", /// Something to do (such as restocking), not a data problem.
+        Notice = "notice", }
+}
+string_enum! {
+    /// What became of a flag.
+    FlagStatus { /// Raised and not yet dealt with.
+        Open = "open", /// No longer raised: the data were corrected.
+        Fixed = "fixed", /// Still raised, but confirmed right as recorded, with a note.
+        Confirmed = "confirmed", }
 }
 
 macro_rules! record {
@@ -424,6 +457,27 @@ pub struct DamageRecord {
     pub notes: Option<String>,
 }
 record!(DamageRecord, "damage_record");
+
+/// A flag raised by a day's-end check, as stored (the `flag` table). The
+/// flag as a rule raises it is [`crate::checks::Flag`].
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct StoredFlag {
+    pub id: FlagId,
+    pub rule_id: String,
+    pub family: CheckFamily,
+    pub severity: Severity,
+    pub enclosure_id: EnclosureId,
+    pub day: i64,
+    pub record_table: String,
+    pub record_id: Uuid,
+    pub related_table: Option<String>,
+    pub related_id: Option<Uuid>,
+    pub message: String,
+    pub fix: String,
+    pub note: Option<String>,
+    pub status: FlagStatus,
+}
+record!(StoredFlag, "flag");
 
 /// The category code of a cover row that gives overall vegetation cover
 /// (layered protocols).

@@ -88,7 +88,8 @@ pub fn stock(
     Ok(event)
 }
 
-/// Record a census of one animal taxon. `None` = not assessed.
+/// Record a census of one animal taxon (replacing the values of an earlier
+/// entry for the same visit and taxon). `None` = not assessed.
 pub fn census(
     w: &mut Writer<'_>,
     visit: VisitId,
@@ -108,8 +109,19 @@ pub fn census(
         missing,
         notes: None,
     };
-    w.insert(&row)?;
-    Ok(row)
+    let existing: Option<CensusId> = w
+        .conn()
+        .query_row(
+            "SELECT id FROM census WHERE visit_id = ?1 AND taxon_id = ?2 AND deleted = 0",
+            rusqlite::params![visit, taxon],
+            |r| r.get(0),
+        )
+        .optional()?;
+    save(w, existing.map(|id| id.0), row, |old, new| Census {
+        id: old.id,
+        notes: old.notes,
+        ..new
+    })
 }
 
 /// What a cover row is about.
@@ -244,8 +256,43 @@ pub fn cover(
             ));
         }
     }
-    w.insert(&row)?;
-    Ok(row)
+    let existing: Option<CoverRecordId> = w
+        .conn()
+        .query_row(
+            "SELECT id FROM cover_record WHERE visit_id = ?1 AND coalesce(taxon_id, '') = coalesce(?2, '') \
+             AND coalesce(category, '') = coalesce(?3, '') AND deleted = 0",
+            rusqlite::params![visit, row.taxon_id, row.category],
+            |r| r.get(0),
+        )
+        .optional()?;
+    save(w, existing.map(|id| id.0), row, |old, new| CoverRecord {
+        id: old.id,
+        notes: old.notes,
+        ..new
+    })
+}
+
+/// Insert `fresh`, or, when a row for the same visit and target exists,
+/// store `merge(existing, fresh)` over it, keeping the stored id (only
+/// changed fields are logged).
+fn save<R: crate::store::Record>(
+    w: &mut Writer<'_>,
+    existing: Option<uuid::Uuid>,
+    fresh: R,
+    merge: impl FnOnce(R, R) -> R,
+) -> Result<R> {
+    let Some(id) = existing else {
+        w.insert(&fresh)?;
+        return Ok(fresh);
+    };
+    let old: R = w.get(id)?.ok_or_else(|| Error::NotFound {
+        table: R::TABLE.to_owned(),
+        id: id.to_string(),
+    })?;
+    let merged = merge(old, fresh);
+    debug_assert_eq!(merged.id(), id, "merge keeps the stored row's id");
+    w.update(&merged)?;
+    Ok(merged)
 }
 
 /// Tag a leaf for damage scoring.
@@ -347,8 +394,19 @@ pub fn damage(
             ));
         }
     }
-    w.insert(&row)?;
-    Ok(row)
+    let existing: Option<DamageRecordId> = w
+        .conn()
+        .query_row(
+            "SELECT id FROM damage_record WHERE visit_id = ?1 AND leaf_id = ?2 AND deleted = 0",
+            rusqlite::params![visit, leaf],
+            |r| r.get(0),
+        )
+        .optional()?;
+    save(w, existing.map(|id| id.0), row, |old, new| DamageRecord {
+        id: old.id,
+        notes: old.notes,
+        ..new
+    })
 }
 
 /// The experiment's cover protocol.

@@ -188,7 +188,9 @@ pub fn init(store: &mut Store, def: &Definition, seed: u64) -> Result<InitSummar
             layered: cover.layered,
             pins_per_frame: cover.pins_per_frame,
             hit_rule: cover.hit_rule,
-            tolerance_pct: cover.tolerance_pct.unwrap_or(5.0),
+            tolerance_pct: cover
+                .tolerance_pct
+                .unwrap_or(crate::checks::DEFAULT_COVER_TOLERANCE_PCT),
             notes: cover.notes.clone(),
         };
         w.insert(&protocol)?;

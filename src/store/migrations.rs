@@ -7,10 +7,16 @@ use rusqlite::{Connection, TransactionBehavior};
 use crate::{Error, Result};
 
 /// Every migration in order; the version after applying entry `i` is `i + 1`.
-pub const MIGRATIONS: &[(&str, &str)] = &[(
-    "0001_initial",
-    include_str!("../../schemas/sqlite/0001_initial.sql"),
-)];
+pub const MIGRATIONS: &[(&str, &str)] = &[
+    (
+        "0001_initial",
+        include_str!("../../schemas/sqlite/0001_initial.sql"),
+    ),
+    (
+        "0002_flags",
+        include_str!("../../schemas/sqlite/0002_flags.sql"),
+    ),
+];
 
 /// The schema version this build writes.
 pub fn latest_version() -> i64 {

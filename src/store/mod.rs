@@ -134,39 +134,17 @@ impl Store {
 
     /// One live row of `R` by id.
     pub fn get<R: Record>(&self, id: Uuid) -> Result<Option<R>> {
-        let schema = table_of::<R>();
-        let sql = format!(
-            "SELECT {} FROM {} WHERE id = ?1 AND deleted = 0",
-            schema.column_list(),
-            schema.name
-        );
-        let values = self
-            .conn
-            .prepare_cached(&sql)?
-            .query_row([id.to_string()], |r| read_values(r, schema.fields.len()))
-            .optional()?;
-        values.map(|v| from_values(schema, v)).transpose()
+        get(&self.conn, id)
     }
 
     /// Every live row of `R`, ordered by id (creation order for UUIDv7).
     pub fn list<R: Record>(&self) -> Result<Vec<R>> {
-        let schema = table_of::<R>();
-        self.rows(schema)?
-            .into_iter()
-            .map(|v| from_values(schema, v))
-            .collect()
+        list(&self.conn)
     }
 
     /// Every live row of a table as stored values, ordered by id.
     pub fn rows(&self, schema: &TableSchema) -> Result<Vec<Vec<Value>>> {
-        let sql = format!(
-            "SELECT {} FROM {} WHERE deleted = 0 ORDER BY id",
-            schema.column_list(),
-            schema.name
-        );
-        let mut stmt = self.conn.prepare_cached(&sql)?;
-        let rows = stmt.query_map([], |r| read_values(r, schema.fields.len()))?;
-        Ok(rows.collect::<rusqlite::Result<_>>()?)
+        rows(&self.conn, schema)
     }
 
     /// Number of change-log entries.
@@ -175,6 +153,44 @@ impl Store {
             .conn
             .query_row("SELECT count(*) FROM change_log", [], |r| r.get(0))?)
     }
+}
+
+/// One live row of `R` by id on a connection: [`Store::get`] for code that
+/// reads inside a write transaction ([`Writer::conn`]).
+pub fn get<R: Record>(conn: &Connection, id: Uuid) -> Result<Option<R>> {
+    let schema = table_of::<R>();
+    let sql = format!(
+        "SELECT {} FROM {} WHERE id = ?1 AND deleted = 0",
+        schema.column_list(),
+        schema.name
+    );
+    let values = conn
+        .prepare_cached(&sql)?
+        .query_row([id.to_string()], |r| read_values(r, schema.fields.len()))
+        .optional()?;
+    values.map(|v| from_values(schema, v)).transpose()
+}
+
+/// Every live row of `R` on a connection, ordered by id: [`Store::list`] for
+/// code that reads inside a write transaction ([`Writer::conn`]).
+pub fn list<R: Record>(conn: &Connection) -> Result<Vec<R>> {
+    let schema = table_of::<R>();
+    rows(conn, schema)?
+        .into_iter()
+        .map(|v| from_values(schema, v))
+        .collect()
+}
+
+/// Every live row of a table on a connection as stored values, ordered by id.
+pub fn rows(conn: &Connection, schema: &TableSchema) -> Result<Vec<Vec<Value>>> {
+    let sql = format!(
+        "SELECT {} FROM {} WHERE deleted = 0 ORDER BY id",
+        schema.column_list(),
+        schema.name
+    );
+    let mut stmt = conn.prepare_cached(&sql)?;
+    let rows = stmt.query_map([], |r| read_values(r, schema.fields.len()))?;
+    Ok(rows.collect::<rusqlite::Result<_>>()?)
 }
 
 /// The schema of a record type's table.

@@ -73,6 +73,11 @@ impl<'a> Writer<'a> {
         Ok(())
     }
 
+    /// This database's device id.
+    pub fn device_id(&self) -> &str {
+        self.device_id
+    }
+
     /// A fresh row id (UUIDv7).
     pub fn new_id(&mut self) -> Uuid {
         self.ids.next()
@@ -81,6 +86,16 @@ impl<'a> Writer<'a> {
     /// The transaction, for reads that must see this transaction's writes.
     pub fn conn(&self) -> &rusqlite::Connection {
         &self.tx
+    }
+
+    /// A live row of `R` by id, as this transaction sees it.
+    pub fn get<R: Record>(&self, id: Uuid) -> Result<Option<R>> {
+        let schema = table_of::<R>();
+        match self.live_row(schema, &id.to_string()) {
+            Ok(values) => super::rows::from_values(schema, values).map(Some),
+            Err(Error::NotFound { .. }) => Ok(None),
+            Err(e) => Err(e),
+        }
     }
 
     /// Insert a typed record.
