@@ -16,8 +16,9 @@
 //!   The share is unstable when the total is near 0, so it gets a seeded
 //!   percentile bootstrap interval (cages resampled with replacement within
 //!   each treatment; one stream per day and set of cages, so every response
-//!   measured on the same cages is resampled alike). Interpretation caveats: Abrams 2007 (Ecology
-//!   88:2555–2562); Okuyama & Bolker 2007 (Ecology Letters 10:264–271).
+//!   measured on the same cages is resampled alike). Interpretation caveats:
+//!   Abrams 2007 (Ecology 88:2555–2562); Okuyama & Bolker 2007 (Ecology
+//!   Letters 10:264–271).
 
 use rand::{Rng, SeedableRng};
 use rand_chacha::ChaCha8Rng;
