@@ -45,7 +45,7 @@ fi
 [ -x .venv/bin/python ] || python3 -m venv .venv
 .venv/bin/python -m pip install --quiet --disable-pip-version-check -r tests/python/requirements.txt
 
-say "data package validated by frictionless (pytest tests/python)"
+say "independent checks (pytest tests/python): data package by frictionless and pandas; statistics vs scipy, numpy, lifelines"
 cargo build --locked --quiet
 FIELDCAGE_BIN="$PWD/target/debug/fieldcage" .venv/bin/python -m pytest -q tests/python
 

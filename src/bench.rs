@@ -1,6 +1,7 @@
 //! The benchmark behind `fieldcage bench`: builds a synthetic season of a
 //! given size ([`crate::synth`]) and times each stage on it: the build, the
-//! day's-end checks over the whole season, export and import. Figures are
+//! day's-end checks over the whole season, the export (which includes the
+//! analysis tables), the analysis on its own and the import. Figures are
 //! wall-clock seconds of one run on this machine; run in release mode.
 
 use std::path::Path;
@@ -72,6 +73,14 @@ pub fn run(size: SeasonSize, dir: &Path) -> Result<Vec<Timing>> {
         "export tidy tables",
         format!("{changes} logged changes"),
         &mut || crate::export::export(&store, &export_dir).map(drop),
+    )?;
+    time(
+        "analysis (all tables, effects, bootstrap)",
+        format!(
+            "all responses; {} bootstrap resamples per split",
+            crate::analysis::Options::default().bootstrap_reps
+        ),
+        &mut || crate::analysis::analyse(&store, &crate::analysis::Options::default()).map(drop),
     )?;
     let mut copy = Store::open(dir.join("copy.db"))?;
     time("import tidy tables", "all tables".to_owned(), &mut || {

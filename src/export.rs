@@ -17,6 +17,10 @@
 //!   same data always gives byte-identical files.
 //! - Each file is written to a temporary name in the folder, flushed to disk
 //!   and renamed, so a reader never sees half a file.
+//! - Next to the data tables come the analysis tables ([`tables::analysis`],
+//!   computed by [`crate::analysis`] from the same snapshot; described in
+//!   `datapackage.json` too) and `report.md`. They are derived, so import
+//!   reads only the data tables and the analysis is computed again.
 
 use std::fs::{self, File};
 use std::io::Write;
@@ -24,6 +28,7 @@ use std::path::Path;
 
 use serde_json::{Map, Value as Json, json};
 
+use crate::analysis::{self, Options};
 use crate::model::Experiment;
 use crate::store::Store;
 use crate::tables::{self, TableSchema};
@@ -43,8 +48,10 @@ const SCHEMA_KEYS: &[&str] = &["fields", "missingValues", "primaryKey", "foreign
 /// What an export wrote.
 #[derive(Debug, Clone, Default, PartialEq, Eq)]
 pub struct ExportSummary {
-    /// Rows written per table, in export order.
+    /// Rows written per data table, in export order.
     pub tables: Vec<(String, usize)>,
+    /// Rows written per analysis table, in export order.
+    pub analysis: Vec<(String, usize)>,
 }
 
 /// The CSV file name of a table.
@@ -67,6 +74,14 @@ pub fn export(store: &Store, out: &Path) -> Result<ExportSummary> {
         write_file(out, &file_name(schema), &bytes)?;
         summary.tables.push((schema.name.clone(), rows.len()));
     }
+    let results = analysis::analyse(store, &Options::default())?;
+    for (schema, rows) in analysis::tables::all(&results)? {
+        let bytes = table_csv(schema, &rows)?;
+        write_file(out, &file_name(schema), &bytes)?;
+        summary.analysis.push((schema.name.clone(), rows.len()));
+    }
+    let report = analysis::report::render(&results);
+    write_file(out, analysis::report::FILE, report.as_bytes())?;
     let descriptor = data_package(store)?;
     drop(snapshot);
     let mut text = serde_json::to_string_pretty(&descriptor)
@@ -97,7 +112,11 @@ fn table_csv(schema: &TableSchema, rows: &[Vec<rusqlite::types::Value>]) -> Resu
 /// The `datapackage.json` descriptor.
 fn data_package(store: &Store) -> Result<Json> {
     let (name, title) = package_name(store)?;
-    let resources: Vec<Json> = tables::all().iter().map(resource).collect();
+    let resources: Vec<Json> = tables::all()
+        .iter()
+        .chain(tables::analysis())
+        .map(resource)
+        .collect();
     Ok(json!({
         "profile": "tabular-data-package",
         "name": name,

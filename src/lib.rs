@@ -6,6 +6,7 @@
 //! definitions in `schemas/tables/` ([`tables`]) are the single description of
 //! every stored and exported column.
 
+pub mod analysis;
 pub mod bench;
 pub mod checks;
 pub mod demo;

@@ -6,7 +6,7 @@ use std::process::ExitCode;
 
 use anyhow::Context;
 use clap::{Parser, Subcommand};
-use fieldcage::{Store, checks, demo, export, import, setup};
+use fieldcage::{Store, analysis, checks, demo, export, import, setup};
 
 /// Offline-first field recorder for cage experiments on predators, herbivores and plants.
 #[derive(Debug, Parser)]
@@ -103,6 +103,27 @@ enum Command {
         #[arg(long, value_name = "TEXT", requires = "confirm")]
         note: Option<String>,
     },
+    /// Print the effect table: log response ratios of each contrast and the
+    /// consumptive / non-consumptive split of the predator effect.
+    Results {
+        /// The database file.
+        #[arg(long)]
+        db: PathBuf,
+        /// Only this response (e.g. cover.total, cover.group.forb, diversity.shannon,
+        /// damage.index, survival.SLUG).
+        #[arg(long)]
+        response: Option<String>,
+        /// Only this day of the experiment (default: each response's last day).
+        #[arg(long)]
+        day: Option<i64>,
+        /// Print JSON (effects, splits, options and data-handling notes).
+        #[arg(long)]
+        json: bool,
+    },
+    /// Reference-test hook: answers one JSON request on standard input with
+    /// the analysis functions (see fieldcage::analysis::probe).
+    #[command(hide = true, name = "analysis-probe")]
+    AnalysisProbe,
     /// Time each stage on a synthetic season (run with --release).
     Bench {
         /// Cages (rounded up to a multiple of 4).
@@ -193,8 +214,10 @@ fn run(cli: Cli) -> anyhow::Result<ExitCode> {
             let summary = export::export(&store, &out)?;
             let rows: usize = summary.tables.iter().map(|(_, n)| n).sum();
             println!(
-                "wrote {} tables ({rows} rows) and datapackage.json to {}",
+                "wrote {} data tables ({rows} rows), {} analysis tables, {}, and datapackage.json to {}",
                 summary.tables.len(),
+                summary.analysis.len(),
+                analysis::report::FILE,
                 out.display()
             );
         }
@@ -256,6 +279,36 @@ fn run(cli: Cli) -> anyhow::Result<ExitCode> {
                     guard,
                 ))
                 .with_context(|| format!("serving on {addr}"))?;
+        }
+        Command::Results {
+            db,
+            response,
+            day,
+            json,
+        } => {
+            let store = existing_database(&db)?;
+            let results = analysis::analyse(&store, &analysis::Options::default())?;
+            let (effects, splits) = results.select(response.as_deref(), day)?;
+            if json {
+                let out = serde_json::json!({
+                    "effects": effects,
+                    "splits": splits,
+                    "options": results.options,
+                    "notes": results.notes,
+                });
+                println!("{}", serde_json::to_string_pretty(&out)?);
+            } else {
+                print!(
+                    "{}",
+                    analysis::report::effect_table(&results, &effects, &splits)
+                );
+            }
+        }
+        Command::AnalysisProbe => {
+            let mut input = String::new();
+            std::io::Read::read_to_string(&mut std::io::stdin(), &mut input)
+                .context("reading the request on standard input")?;
+            println!("{}", analysis::probe::run(&input)?);
         }
         Command::Bench {
             cages,

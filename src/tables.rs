@@ -6,6 +6,11 @@
 //! Per-value rules (type, required, range, enum, pattern) live here and are
 //! enforced on every write. Rules that relate several records (cover totals,
 //! repeat visits, …) are the day's-end checks, not schema constraints.
+//!
+//! Two lists: the stored tables ([`all`], `schemas/tables/*.json`), which
+//! live in SQLite and are exported and imported; and the analysis tables
+//! ([`analysis`], `schemas/tables/analysis/*.json`), which are derived from
+//! the stored ones on export and never stored or imported.
 
 use std::sync::OnceLock;
 
@@ -80,6 +85,51 @@ const SOURCES: &[(&str, &str)] = &[
         include_str!("../schemas/tables/damage_record.json"),
     ),
     ("flag", include_str!("../schemas/tables/flag.json")),
+];
+
+/// Table Schema JSON of every analysis table (derived on export, never
+/// stored), in export order.
+const ANALYSIS_SOURCES: &[(&str, &str)] = &[
+    (
+        "species_cover",
+        include_str!("../schemas/tables/analysis/species_cover.json"),
+    ),
+    (
+        "group_cover",
+        include_str!("../schemas/tables/analysis/group_cover.json"),
+    ),
+    (
+        "diversity",
+        include_str!("../schemas/tables/analysis/diversity.json"),
+    ),
+    (
+        "herbivory",
+        include_str!("../schemas/tables/analysis/herbivory.json"),
+    ),
+    (
+        "cage_survival",
+        include_str!("../schemas/tables/analysis/cage_survival.json"),
+    ),
+    (
+        "survival_curve",
+        include_str!("../schemas/tables/analysis/survival_curve.json"),
+    ),
+    (
+        "cage_response",
+        include_str!("../schemas/tables/analysis/cage_response.json"),
+    ),
+    (
+        "treatment_summary",
+        include_str!("../schemas/tables/analysis/treatment_summary.json"),
+    ),
+    (
+        "effect",
+        include_str!("../schemas/tables/analysis/effect.json"),
+    ),
+    (
+        "predator_split",
+        include_str!("../schemas/tables/analysis/predator_split.json"),
+    ),
 ];
 
 /// A Frictionless field type used by fieldcage's tables.
@@ -158,6 +208,8 @@ pub struct TableSchema {
     pub fields: Vec<FieldSchema>,
     /// Foreign keys.
     pub foreign_keys: Vec<ForeignKey>,
+    /// The primary key's columns (`["id"]` for every stored table).
+    pub primary_key: Vec<String>,
     /// Column sets unique among live rows (the primary key and single `unique`
     /// fields included).
     pub unique_keys: Vec<Vec<usize>>,
@@ -190,18 +242,25 @@ struct RawReference {
     resource: String,
 }
 
-fn parse_schema(name: &str, text: &str) -> TableSchema {
+/// Whether a schema describes a stored or a derived (analysis) table.
+#[derive(Clone, Copy, PartialEq)]
+enum Kind {
+    Stored,
+    Analysis,
+}
+
+fn parse_schema(name: &str, text: &str, kind: Kind) -> TableSchema {
     // The schemas are part of the build; a broken one is a programming error
     // that the test suite catches before release.
-    let json: serde_json::Value = serde_json::from_str(text)
-        .unwrap_or_else(|e| panic!("schemas/tables/{name}.json is not JSON: {e}"));
+    let json: serde_json::Value =
+        serde_json::from_str(text).unwrap_or_else(|e| panic!("schema {name} is not JSON: {e}"));
     let raw: RawSchema = serde_json::from_value(json.clone())
-        .unwrap_or_else(|e| panic!("schemas/tables/{name}.json is not a table schema: {e}"));
-    assert_eq!(
-        raw.name, name,
-        "schemas/tables/{name}.json names another table"
-    );
-    assert_eq!(raw.primary_key, ["id"], "{name}: primary key must be id");
+        .unwrap_or_else(|e| panic!("schema {name} is not a table schema: {e}"));
+    assert_eq!(raw.name, name, "schema {name} names another table");
+    if kind == Kind::Stored {
+        // Stored rows are addressed by id everywhere (writer, change log, sync).
+        assert_eq!(raw.primary_key, ["id"], "{name}: primary key must be id");
+    }
     let mut fields = raw.fields;
     for f in &mut fields {
         if let Some(p) = &f.constraints.pattern {
@@ -222,7 +281,7 @@ fn parse_schema(name: &str, text: &str) -> TableSchema {
         .filter(|(_, f)| f.constraints.unique)
         .map(|(i, _)| vec![i])
         .collect();
-    for key in &raw.unique_keys {
+    for key in std::iter::once(&raw.primary_key).chain(&raw.unique_keys) {
         let cols: Vec<usize> = key.iter().map(|c| index(c)).collect();
         if !unique_keys.contains(&cols) {
             unique_keys.push(cols);
@@ -245,25 +304,43 @@ fn parse_schema(name: &str, text: &str) -> TableSchema {
         description: raw.description,
         fields,
         foreign_keys,
+        primary_key: raw.primary_key,
         unique_keys,
         json,
     }
 }
 
-/// Every data table, in dependency order.
+/// Every stored data table, in dependency order.
 pub fn all() -> &'static [TableSchema] {
     static TABLES: OnceLock<Vec<TableSchema>> = OnceLock::new();
     TABLES.get_or_init(|| {
         SOURCES
             .iter()
-            .map(|(name, text)| parse_schema(name, text))
+            .map(|(name, text)| parse_schema(name, text, Kind::Stored))
             .collect()
     })
 }
 
-/// The schema of one table, if it exists.
+/// The schema of one stored table, if it exists.
 pub fn get(name: &str) -> Option<&'static TableSchema> {
     all().iter().find(|t| t.name == name)
+}
+
+/// Every analysis table (derived on export; never stored or imported), in
+/// export order.
+pub fn analysis() -> &'static [TableSchema] {
+    static TABLES: OnceLock<Vec<TableSchema>> = OnceLock::new();
+    TABLES.get_or_init(|| {
+        ANALYSIS_SOURCES
+            .iter()
+            .map(|(name, text)| parse_schema(name, text, Kind::Analysis))
+            .collect()
+    })
+}
+
+/// The schema of one analysis table, if it exists.
+pub fn get_analysis(name: &str) -> Option<&'static TableSchema> {
+    analysis().iter().find(|t| t.name == name)
 }
 
 impl TableSchema {

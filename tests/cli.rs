@@ -51,8 +51,8 @@ fn demo_export_import_export_round_trips_byte_for_byte() {
     let y = files(&cwd.join("y"));
     assert_eq!(
         x.len(),
-        fieldcage::tables::all().len() + 1,
-        "a CSV per table and datapackage.json"
+        fieldcage::tables::all().len() + fieldcage::tables::analysis().len() + 2,
+        "a CSV per data and analysis table, datapackage.json and report.md"
     );
     assert_eq!(x, y);
 }

@@ -1,5 +1,8 @@
 //! The table schemas in schemas/tables are the one definition of every column:
-//! the SQLite tables and the record structs must agree with them.
+//! the SQLite tables and the record structs must agree with them. The
+//! analysis tables (schemas/tables/analysis) are derived on export and never
+//! stored: the SQLite checks apply to the stored tables only, and the
+//! analysis row structs must agree with their schemas instead.
 
 use fieldcage::model::*;
 use fieldcage::store::Record;
@@ -145,24 +148,79 @@ fn every_record_struct_fits_its_table_schema() {
     assert!(counts.iter().all(|n| *n > 0), "{counts:?}");
 }
 
+/// The `.json` file stems of one schema folder (sub-folders are not files).
+fn schema_files(dir: &std::path::Path) -> Vec<String> {
+    let mut names: Vec<String> = std::fs::read_dir(dir)
+        .unwrap()
+        .map(|e| e.unwrap().path())
+        .filter(|p| p.is_file())
+        .map(|p| {
+            let name = p.file_name().unwrap().to_string_lossy().into_owned();
+            assert!(name.ends_with(".json"), "{} is not a schema", p.display());
+            name.trim_end_matches(".json").to_owned()
+        })
+        .collect();
+    names.sort();
+    names
+}
+
 #[test]
 fn schema_files_on_disk_are_the_embedded_ones() {
     let dir = std::path::Path::new(env!("CARGO_MANIFEST_DIR")).join("schemas/tables");
-    let mut on_disk: Vec<String> = std::fs::read_dir(&dir)
-        .unwrap()
-        .map(|e| {
-            e.unwrap()
-                .file_name()
-                .to_string_lossy()
-                .trim_end_matches(".json")
-                .to_owned()
-        })
-        .collect();
-    on_disk.sort();
     let mut embedded: Vec<String> = tables::all().iter().map(|t| t.name.clone()).collect();
     embedded.sort();
     assert_eq!(
-        on_disk, embedded,
-        "every schema file is embedded, and only those"
+        schema_files(&dir),
+        embedded,
+        "every stored-table schema file is embedded, and only those"
     );
+    let mut analysis: Vec<String> = tables::analysis().iter().map(|t| t.name.clone()).collect();
+    analysis.sort();
+    assert_eq!(
+        schema_files(&dir.join("analysis")),
+        analysis,
+        "every analysis-table schema file is embedded, and only those"
+    );
+}
+
+#[test]
+fn analysis_tables_are_not_stored_and_refer_to_real_tables() {
+    let tmp = Temp::new();
+    let store = tmp.store("a.db");
+    let stored: Vec<&str> = tables::all().iter().map(|t| t.name.as_str()).collect();
+    for schema in tables::analysis() {
+        assert!(
+            !stored.contains(&schema.name.as_str()),
+            "{} is both a stored and an analysis table",
+            schema.name
+        );
+        assert!(tables::get(&schema.name).is_none(), "{}", schema.name);
+        let in_sqlite: i64 = store
+            .conn()
+            .query_row(
+                "SELECT count(*) FROM sqlite_schema WHERE name = ?1",
+                [&schema.name],
+                |r| r.get(0),
+            )
+            .unwrap();
+        assert_eq!(in_sqlite, 0, "{} must not be a SQLite table", schema.name);
+        for fk in &schema.foreign_keys {
+            assert!(
+                stored.contains(&fk.resource.as_str()),
+                "{}.{} refers to {}, which is not a stored table",
+                schema.name,
+                fk.field,
+                fk.resource
+            );
+            assert!(schema.field(&fk.field).is_some());
+        }
+        for key in &schema.primary_key {
+            let field = schema.field(key).expect("key column exists");
+            assert!(
+                field.constraints.required,
+                "{}.{key}: primary-key columns are required",
+                schema.name
+            );
+        }
+    }
 }

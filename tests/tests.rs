@@ -6,6 +6,7 @@
 
 mod util;
 
+mod analysis;
 mod api;
 mod changelog;
 mod checks;

@@ -279,12 +279,15 @@ fn export_import_export_is_byte_identical() {
     export::export(&copy, &second).expect("export again");
     let a = folder_bytes(&first);
     let b = folder_bytes(&second);
-    // One CSV per table plus datapackage.json, and no temporary files left.
+    // One CSV per data and analysis table, datapackage.json and report.md,
+    // and no temporary files left.
     let mut expected: Vec<String> = tables::all()
         .iter()
+        .chain(tables::analysis())
         .map(|t| format!("{}.csv", t.name))
         .collect();
     expected.push("datapackage.json".into());
+    expected.push("report.md".into());
     expected.sort();
     let names: Vec<&String> = a.iter().map(|(n, _)| n).collect();
     assert_eq!(names, expected.iter().collect::<Vec<_>>());
@@ -373,8 +376,10 @@ fn datapackage_describes_every_table() {
         .iter()
         .map(|r| r["name"].as_str().expect("name"))
         .collect();
-    let tables: Vec<&str> = tables::all().iter().map(|t| t.name.as_str()).collect();
-    assert_eq!(names, tables); // every table, in dependency order
+    let stored: Vec<&str> = tables::all().iter().map(|t| t.name.as_str()).collect();
+    let derived: Vec<&str> = tables::analysis().iter().map(|t| t.name.as_str()).collect();
+    // Every data table in dependency order, then every analysis table.
+    assert_eq!(names, [stored.clone(), derived].concat());
     for r in resources {
         let name = r["name"].as_str().expect("name");
         // Frictionless Tabular Data Resource properties.
@@ -394,7 +399,16 @@ fn datapackage_describes_every_table() {
         let csv = read_text(&folder.join(format!("{name}.csv")));
         let header = csv.split('\n').next().expect("header");
         assert_eq!(fields.join(","), header, "{name}");
-        assert_eq!(r["schema"]["primaryKey"], serde_json::json!(["id"]));
+        let key = if stored.contains(&name) {
+            serde_json::json!(["id"])
+        } else {
+            serde_json::json!(
+                tables::get_analysis(name)
+                    .expect("analysis table")
+                    .primary_key
+            )
+        };
+        assert_eq!(r["schema"]["primaryKey"], key, "{name}");
         // Foreign keys point at resources of this package (Table Schema).
         for fk in r["schema"]["foreignKeys"].as_array().into_iter().flatten() {
             let target = fk["reference"]["resource"].as_str().expect("resource");

@@ -244,16 +244,8 @@ pub fn cover(
         }
         (CoverMethod::Pins, CoverEntry::Pins(hits)) => {
             let pins = protocol.pins_per_frame.unwrap_or(0);
-            if hits < 0 || hits > pins {
-                return Err(Error::invalid(
-                    "cover_record",
-                    "pin_hits",
-                    hits,
-                    format!("must be between 0 and the frame's {pins} pins"),
-                ));
-            }
+            row.cover_pct = Some(crate::analysis::cover::pins_to_percent(hits, pins)?);
             row.pin_hits = Some(hits);
-            row.cover_pct = Some(100.0 * hits as f64 / pins as f64);
         }
         (method, entry) => {
             return Err(Error::invalid(
