@@ -15,6 +15,7 @@ pub mod model;
 pub mod record;
 pub mod setup;
 pub mod store;
+pub mod sync;
 pub mod synth;
 pub mod tables;
 

@@ -7,10 +7,17 @@ use rusqlite::{Connection, TransactionBehavior};
 use crate::{Error, Result};
 
 /// Every migration in order; the version after applying entry `i` is `i + 1`.
-pub const MIGRATIONS: &[(&str, &str)] = &[(
-    "0001_initial",
-    include_str!("../../schemas/sqlite/0001_initial.sql"),
-)];
+/// (0002 is the flag table, made on another branch; 0003 must follow it.)
+pub const MIGRATIONS: &[(&str, &str)] = &[
+    (
+        "0001_initial",
+        include_str!("../../schemas/sqlite/0001_initial.sql"),
+    ),
+    (
+        "0003_sync",
+        include_str!("../../schemas/sqlite/0003_sync.sql"),
+    ),
+];
 
 /// The schema version this build writes.
 pub fn latest_version() -> i64 {
