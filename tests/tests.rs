@@ -14,4 +14,5 @@ mod record;
 mod schema;
 mod setup;
 mod store;
+mod sync;
 mod transfer;

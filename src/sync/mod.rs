@@ -828,9 +828,21 @@ fn apply_others(
             }
         }
     }
+    // Copies of change-sets applied before, under another name.
+    let mut fresh = Vec::new();
+    for f in found {
+        match applied_file(store.conn(), &f.cs)? {
+            Some(file) if file != f.label => report.skipped.push(SkippedFile {
+                reason: format!("same change-set as {file}, applied before; skipped"),
+                file: f.path,
+                kind: SkipKind::Duplicate,
+            }),
+            _ => fresh.push(f),
+        }
+    }
     // Canonical names first, so that a copy under another name is the one
     // reported as the duplicate.
-    found.sort_by(|a, b| {
+    fresh.sort_by(|a, b| {
         (&a.cs.device_id, a.cs.first_seq, !a.canonical, &a.label).cmp(&(
             &b.cs.device_id,
             b.cs.first_seq,
@@ -838,10 +850,8 @@ fn apply_others(
             &b.label,
         ))
     });
-    // Two different change-sets claiming the same device and seq: neither is
-    // applied, since neither can be trusted over the other.
     let mut open: Vec<Found> = Vec::new();
-    for f in found {
+    for f in fresh {
         if let Some(same) = open.iter().find(|o| {
             o.cs.device_id == f.cs.device_id
                 && o.cs.first_seq == f.cs.first_seq
@@ -857,6 +867,8 @@ fn apply_others(
         }
         open.push(f);
     }
+    // Two different change-sets claiming the same device and seq: neither is
+    // applied, since neither can be trusted over the other.
     let clashing: Vec<usize> = (0..open.len())
         .filter(|&i| {
             open.iter().enumerate().any(|(j, o)| {
@@ -936,6 +948,18 @@ fn apply_others(
         });
     }
     Ok(())
+}
+
+/// The file a change-set with exactly this content was applied from, if any.
+fn applied_file(conn: &Connection, cs: &ChangeSet) -> Result<Option<String>> {
+    Ok(conn
+        .query_row(
+            "SELECT file_name FROM sync_applied WHERE device_id = ?1 AND first_seq = ?2 \
+             AND last_seq = ?3 AND sha256 = ?4",
+            params![cs.device_id, cs.first_seq, cs.last_seq, cs.sha256],
+            |r| r.get(0),
+        )
+        .optional()?)
 }
 
 /// An error's text without the leading file path (the report names the file).
