@@ -15,4 +15,5 @@ mod schema;
 mod setup;
 mod store;
 mod sync;
+mod sync_props;
 mod transfer;

@@ -147,17 +147,9 @@ impl TestClock {
         )))
     }
 
-    pub fn set(&self, millis: i64) {
-        self.0.store(millis, std::sync::atomic::Ordering::SeqCst);
-    }
-
     pub fn advance(&self, millis: i64) {
         self.0
             .fetch_add(millis, std::sync::atomic::Ordering::SeqCst);
-    }
-
-    pub fn get(&self) -> i64 {
-        self.0.load(std::sync::atomic::Ordering::SeqCst)
     }
 
     pub fn clock(&self) -> fieldcage::store::Clock {
@@ -322,11 +314,22 @@ impl Device {
         d
     }
 
-    /// A new device with an empty database.
+    /// A new device with an empty database (copied from a migrated template
+    /// with the backup API: creating the schema is most of the cost of a new
+    /// database, and the sync tests make thousands). It gets its own identity
+    /// when first opened.
     pub fn empty(tmp: &Temp, name: &str, millis: i64) -> Device {
         let clock = TestClock::at(millis);
-        let mut store =
-            Store::open_with_clock(tmp.path(&format!("{name}.db")), clock.clock()).unwrap();
+        let path = tmp.path(&format!("{name}.db"));
+        {
+            let template = template();
+            let mut copy = rusqlite::Connection::open(&path).unwrap();
+            rusqlite::backup::Backup::new(&template, &mut copy)
+                .unwrap()
+                .run_to_completion(1 << 20, std::time::Duration::ZERO, None)
+                .unwrap();
+        }
+        let mut store = Store::open_with_clock(&path, clock.clock()).unwrap();
         store.set_device_name(name).unwrap();
         Device { store, clock }
     }
@@ -335,4 +338,18 @@ impl Device {
     pub fn sync(&mut self, target: &std::path::Path) -> fieldcage::sync::SyncReport {
         fieldcage::sync::sync_once(&mut self.store, target).unwrap()
     }
+}
+
+/// A database with every migration applied and no device identity yet.
+fn template() -> std::sync::MutexGuard<'static, rusqlite::Connection> {
+    static TEMPLATE: std::sync::OnceLock<std::sync::Mutex<rusqlite::Connection>> =
+        std::sync::OnceLock::new();
+    TEMPLATE
+        .get_or_init(|| {
+            let mut conn = rusqlite::Connection::open_in_memory().unwrap();
+            fieldcage::store::migrations::migrate(&mut conn).unwrap();
+            std::sync::Mutex::new(conn)
+        })
+        .lock()
+        .unwrap_or_else(|e| e.into_inner())
 }
