@@ -15,5 +15,6 @@ mod schema;
 mod setup;
 mod store;
 mod sync;
+mod sync_orders;
 mod sync_props;
 mod transfer;

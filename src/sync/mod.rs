@@ -354,6 +354,55 @@ pub fn clock_anomalies(store: &Store) -> Result<Vec<ClockAnomaly>> {
     Ok(rows.collect::<rusqlite::Result<_>>()?)
 }
 
+/// What happened to a change-set offered to [`apply_changeset`].
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub enum ApplyResult {
+    /// Applied, in one transaction; the anomaly is set when the change-set's
+    /// clock was far ahead of this device's.
+    Applied {
+        /// A remote clock far ahead, if it was.
+        anomaly: Option<ClockAnomaly>,
+    },
+    /// The same change-set was applied before (from the source named).
+    AlreadyApplied {
+        /// Where it was applied from.
+        source: String,
+    },
+    /// Not yet: it needs other change-sets first (the reason names them).
+    Waiting(String),
+}
+
+/// Apply one verified change-set (from a folder, or later from another
+/// transport) if it is ready: next in its device's sequence, and after every
+/// change-set its author had applied. All of it in one transaction, or
+/// nothing. `source` names where it came from in messages and records.
+/// A change-set that contradicts what was applied before is an
+/// [`Error::ChangeSet`].
+pub fn apply_changeset(
+    store: &mut Store,
+    cs: &ChangeSet,
+    source: &str,
+    size_bytes: u64,
+    options: &SyncOptions,
+) -> Result<ApplyResult> {
+    Ok(
+        match apply::apply(store, cs, source, size_bytes, options)? {
+            apply::Outcome::Applied { ahead } => ApplyResult::Applied {
+                anomaly: ahead.map(|a| ClockAnomaly {
+                    device_id: cs.device_id.clone(),
+                    kind: AnomalyKind::Ahead,
+                    clock_millis: crate::store::Hlc(a.hlc).millis(),
+                    local_millis: a.local_millis,
+                    file: Some(source.to_owned()),
+                    noticed_at: timestamp(a.local_millis),
+                }),
+            },
+            apply::Outcome::AlreadyApplied { file } => ApplyResult::AlreadyApplied { source: file },
+            apply::Outcome::Waiting(reason) => ApplyResult::Waiting(reason),
+        },
+    )
+}
+
 /// One sync run with the default options.
 pub fn sync_once(store: &mut Store, target: &Path) -> Result<SyncReport> {
     sync_with(store, target, &SyncOptions::default())
@@ -897,19 +946,10 @@ fn apply_others(
         let mut progress = false;
         let mut still = Vec::new();
         for (f, _) in waiting {
-            match apply::apply(store, &f.cs, &f.label, f.size, options) {
-                Ok(apply::Outcome::Applied { ahead }) => {
+            match apply_changeset(store, &f.cs, &f.label, f.size, options) {
+                Ok(ApplyResult::Applied { anomaly }) => {
                     progress = true;
-                    if let Some(a) = ahead {
-                        report.anomalies.push(ClockAnomaly {
-                            device_id: f.cs.device_id.clone(),
-                            kind: AnomalyKind::Ahead,
-                            clock_millis: crate::store::Hlc(a.hlc).millis(),
-                            local_millis: a.local_millis,
-                            file: Some(f.label.clone()),
-                            noticed_at: timestamp(a.local_millis),
-                        });
-                    }
+                    report.anomalies.extend(anomaly);
                     report.applied.push(AppliedFile {
                         file: f.path,
                         device_id: f.cs.device_id,
@@ -918,16 +958,16 @@ fn apply_others(
                         last_seq: f.cs.last_seq,
                     });
                 }
-                Ok(apply::Outcome::AlreadyApplied { file }) => {
-                    if file != f.label {
+                Ok(ApplyResult::AlreadyApplied { source }) => {
+                    if source != f.label {
                         report.skipped.push(SkippedFile {
                             file: f.path,
                             kind: SkipKind::Duplicate,
-                            reason: format!("same change-set as {file}, applied before; skipped"),
+                            reason: format!("same change-set as {source}, applied before; skipped"),
                         });
                     }
                 }
-                Ok(apply::Outcome::Waiting(reason)) => still.push((f, reason)),
+                Ok(ApplyResult::Waiting(reason)) => still.push((f, reason)),
                 Err(e) => report.skipped.push(SkippedFile {
                     file: f.path,
                     kind: SkipKind::Rejected,
