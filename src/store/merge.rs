@@ -326,27 +326,35 @@ pub(crate) struct Settler {
 
 impl Settler {
     /// Recompute one row from its entries and store it: field values, the
-    /// deleted flag, its conflicts. Rows with a unique key that are live by
-    /// their entries are stored as deleted until [`Settler::finish`].
+    /// deleted flag, its conflicts. `arrived` are the row's entries in the
+    /// change-set being applied (already in the log): a row this database
+    /// does not hold yet has no other entries, so it is settled from them
+    /// alone. Rows with a unique key that are live by their entries and may
+    /// share it with another row are stored as deleted until
+    /// [`Settler::finish`].
     pub fn settle(
         &mut self,
         conn: &Connection,
         schema: &'static TableSchema,
         row_id: &str,
+        arrived: &[Entry],
         k: &Knowledge,
     ) -> Result<()> {
-        let entries = row_entries(conn, &schema.name, row_id)?;
-        let state = settle_row(&entries, k);
-        self.note_hidden_behind(conn, schema, row_id)?;
+        let sql = table_sql(schema);
         let current: Option<Vec<Value>> = conn
-            .prepare_cached(&format!(
-                "SELECT {} FROM {} WHERE id = ?1",
-                schema.column_list(),
-                schema.name
-            ))?
+            .prepare_cached(&sql.select_row)?
             .query_row([row_id], |r| read_values(r, schema.fields.len()))
             .optional()?;
         let exists = current.is_some();
+        let state = if exists {
+            self.note_hidden_behind(conn, schema, row_id)?;
+            if is_hidden(conn, &schema.name, row_id)? {
+                forget_hidden(conn, &schema.name, row_id)?;
+            }
+            settle_row(&row_entries(conn, &schema.name, row_id)?, k)
+        } else {
+            settle_row(arrived, k)
+        };
         let mut row = current.unwrap_or_else(|| vec![Value::Null; schema.fields.len()]);
         row[0] = Value::Text(row_id.to_owned());
         for (field, value) in &state.values {
@@ -354,57 +362,62 @@ impl Settler {
                 row[i] = value.clone();
             }
         }
-        let was_hidden = is_hidden(conn, &schema.name, row_id)?;
-        if was_hidden {
-            forget_hidden(conn, &schema.name, row_id)?;
-        }
-        let key = natural_key(schema);
-        let hold = !state.deleted && key.is_some();
-        let deleted = i64::from(state.deleted || hold);
-        let mut args = row.clone();
-        args.push(Value::Integer(deleted));
-        if exists {
-            let sets: Vec<String> = schema
-                .fields
-                .iter()
-                .enumerate()
-                .skip(1)
-                .map(|(i, f)| format!("{} = ?{}", f.name, i + 1))
-                .collect();
-            let sql = format!(
-                "UPDATE {} SET {}, deleted = ?{} WHERE id = ?1",
-                schema.name,
-                sets.join(", "),
-                schema.fields.len() + 1
-            );
-            conn.prepare_cached(&sql)?
-                .execute(rusqlite::params_from_iter(args.iter()))?;
-        } else {
-            let marks: Vec<String> = (1..=schema.fields.len() + 1)
-                .map(|i| format!("?{i}"))
-                .collect();
-            let sql = format!(
-                "INSERT INTO {} ({}, deleted) VALUES ({})",
-                schema.name,
-                schema.column_list(),
-                marks.join(", ")
-            );
-            conn.prepare_cached(&sql)?
-                .execute(rusqlite::params_from_iter(args.iter()))?;
-        }
-        if let (true, Some(key)) = (hold, key) {
+        let mut hold = None;
+        if let (false, Some(key)) = (state.deleted, natural_key(schema)) {
             let values = key_values(schema, key, &row);
             let group = Group {
                 table: schema.name.clone(),
                 key_text: key_text(&values),
             };
+            if exists || self.may_clash(conn, schema, &group, &values)? {
+                hold = Some((group, values));
+            }
+        }
+        let mut args = row;
+        args.push(Value::Integer(i64::from(state.deleted || hold.is_some())));
+        let statement = if exists {
+            &sql.update_row
+        } else {
+            &sql.insert_row
+        };
+        conn.prepare_cached(statement)?
+            .execute(rusqlite::params_from_iter(args.iter()))?;
+        if let Some((group, values)) = hold {
             self.group_values.insert(group.clone(), values);
             self.pending
                 .entry(group)
                 .or_default()
                 .push(row_id.to_owned());
         }
-        write_conflicts(conn, &schema.name, row_id, &state.conflicts)
+        if exists || !state.conflicts.is_empty() {
+            write_conflicts(conn, &schema.name, row_id, &state.conflicts)?;
+        }
+        Ok(())
+    }
+
+    /// Whether a new row's key may be held by another row: a live one, a
+    /// hidden one or one waiting in this transaction.
+    fn may_clash(
+        &self,
+        conn: &Connection,
+        schema: &TableSchema,
+        group: &Group,
+        values: &[Value],
+    ) -> Result<bool> {
+        if self.pending.contains_key(group) {
+            return Ok(true);
+        }
+        let live: bool = conn
+            .prepare_cached(&table_sql(schema).live_by_key_exists)?
+            .query_row(rusqlite::params_from_iter(values.iter()), |r| r.get(0))?;
+        if live {
+            return Ok(true);
+        }
+        Ok(conn
+            .prepare_cached(
+                "SELECT EXISTS (SELECT 1 FROM sync_hidden WHERE table_name = ?1 AND key_text = ?2)",
+            )?
+            .query_row([&group.table, &group.key_text], |r| r.get(0))?)
     }
 
     /// Rows hidden behind `row_id` must be settled again: the row they lost
@@ -448,9 +461,9 @@ impl Settler {
             let Some(schema) = tables::get(&group.table) else {
                 continue;
             };
-            let Some(key) = natural_key(schema) else {
+            if natural_key(schema).is_none() {
                 continue;
-            };
+            }
             let values = match self.group_values.get(&group) {
                 Some(v) => v.clone(),
                 None => match key_from_text(&group.key_text) {
@@ -459,7 +472,7 @@ impl Settler {
                 },
             };
             let pending = self.pending.remove(&group).unwrap_or_default();
-            settle_group(conn, schema, key, &group.key_text, &values, &pending)?;
+            settle_group(conn, schema, &group.key_text, &values, &pending)?;
         }
         Ok(())
     }
@@ -470,29 +483,12 @@ impl Settler {
 fn settle_group(
     conn: &Connection,
     schema: &TableSchema,
-    key: &[usize],
     key_text: &str,
     values: &[Value],
     pending: &[String],
 ) -> Result<()> {
-    let cond = key
-        .iter()
-        .enumerate()
-        .map(|(n, i)| {
-            let f = &schema.fields[*i];
-            if f.constraints.required {
-                format!("{} = ?{}", f.name, n + 1)
-            } else {
-                format!("coalesce({}, '') = ?{}", f.name, n + 1)
-            }
-        })
-        .collect::<Vec<_>>()
-        .join(" AND ");
     let live: Vec<String> = conn
-        .prepare_cached(&format!(
-            "SELECT id FROM {} WHERE deleted = 0 AND {cond}",
-            schema.name
-        ))?
+        .prepare_cached(&table_sql(schema).live_by_key)?
         .query_map(rusqlite::params_from_iter(values.iter()), |r| r.get(0))?
         .collect::<rusqlite::Result<_>>()?;
     let hidden: Vec<String> = conn
@@ -525,6 +521,85 @@ fn settle_group(
     ))?
     .execute([keep])?;
     Ok(())
+}
+
+/// The statements the merge runs on each table, made once.
+struct TableSql {
+    select_row: String,
+    update_row: String,
+    insert_row: String,
+    /// Ids of live rows with the natural key's values (?1..).
+    live_by_key: String,
+    /// Whether a live row has the natural key's values (?1..).
+    live_by_key_exists: String,
+}
+
+fn table_sql(schema: &TableSchema) -> &'static TableSql {
+    static SQL: std::sync::OnceLock<HashMap<String, TableSql>> = std::sync::OnceLock::new();
+    let all = SQL.get_or_init(|| {
+        tables::all()
+            .iter()
+            .map(|t| (t.name.clone(), TableSql::new(t)))
+            .collect()
+    });
+    &all[&schema.name]
+}
+
+impl TableSql {
+    fn new(schema: &TableSchema) -> TableSql {
+        let n = schema.fields.len();
+        let sets: Vec<String> = schema
+            .fields
+            .iter()
+            .enumerate()
+            .skip(1)
+            .map(|(i, f)| format!("{} = ?{}", f.name, i + 1))
+            .collect();
+        let marks: Vec<String> = (1..=n + 1).map(|i| format!("?{i}")).collect();
+        // The same expressions as the partial unique indexes (an optional
+        // column as coalesce(column, '')), so that SQLite uses them.
+        let cond = natural_key(schema)
+            .unwrap_or(&[0])
+            .iter()
+            .enumerate()
+            .map(|(n, i)| {
+                let f = &schema.fields[*i];
+                if f.constraints.required {
+                    format!("{} = ?{}", f.name, n + 1)
+                } else {
+                    format!("coalesce({}, '') = ?{}", f.name, n + 1)
+                }
+            })
+            .collect::<Vec<_>>()
+            .join(" AND ");
+        TableSql {
+            select_row: format!(
+                "SELECT {} FROM {} WHERE id = ?1",
+                schema.column_list(),
+                schema.name
+            ),
+            update_row: format!(
+                "UPDATE {} SET {}, deleted = ?{} WHERE id = ?1",
+                schema.name,
+                sets.join(", "),
+                n + 1
+            ),
+            insert_row: format!(
+                "INSERT INTO {} ({}, deleted) VALUES ({})",
+                schema.name,
+                schema.column_list(),
+                marks.join(", ")
+            ),
+            live_by_key: format!(
+                "SELECT id FROM {} WHERE deleted = 0 AND {cond}",
+                schema.name
+            ),
+            live_by_key_exists: format!(
+                "SELECT EXISTS (SELECT 1 FROM {} WHERE deleted = 0 AND {cond})",
+                schema.name
+            ),
+        }
+    }
 }
 
 /// Replace a row's open conflicts.

@@ -13,13 +13,13 @@
 //! they are never sent again as this device's), then every row they touch is
 //! recomputed from all its entries ([`crate::store::merge`]).
 
-use std::collections::HashSet;
+use std::collections::HashMap;
 
 use rusqlite::{OptionalExtension, TransactionBehavior, params};
 
 use super::SyncOptions;
 use super::changeset::ChangeSet;
-use crate::store::merge::{Knowledge, Settler};
+use crate::store::merge::{Entry, Knowledge, Settler};
 use crate::store::{Hlc, Store};
 use crate::tables;
 use crate::{Error, Result};
@@ -156,17 +156,32 @@ pub(crate) fn apply(
         .execute(params![cs.device_id, cs.first_seq, device, seq])?;
     }
     let knowledge = Knowledge::load(&tx)?;
-    let mut settler = Settler::default();
-    let mut touched: HashSet<(&str, &str)> = HashSet::new();
+    // Each row once, in the order its first entry arrived.
+    let mut rows: Vec<(&str, &str, Vec<Entry>)> = Vec::new();
+    let mut index: HashMap<(&str, &str), usize> = HashMap::new();
     for c in &cs.changes {
-        if !touched.insert((c.table.as_str(), c.row_id.as_str())) {
-            continue;
-        }
-        let schema = tables::get(&c.table)
-            .ok_or_else(|| refuse(format!("table_name: {:?} is not a table", c.table)))?;
+        let i = *index
+            .entry((c.table.as_str(), c.row_id.as_str()))
+            .or_insert_with(|| {
+                rows.push((c.table.as_str(), c.row_id.as_str(), Vec::new()));
+                rows.len() - 1
+            });
+        rows[i].2.push(Entry {
+            device: cs.device_id.clone(),
+            seq: c.seq,
+            hlc: c.hlc,
+            op: c.op,
+            field: c.field.clone(),
+            value: c.new_value.clone(),
+        });
+    }
+    let mut settler = Settler::default();
+    for (table, row_id, arrived) in &rows {
+        let schema = tables::get(table)
+            .ok_or_else(|| refuse(format!("table_name: {table:?} is not a table")))?;
         settler
-            .settle(&tx, schema, &c.row_id, &knowledge)
-            .map_err(|e| refuse(format!("{} {}: {e}", c.table, c.row_id)))?;
+            .settle(&tx, schema, row_id, arrived, &knowledge)
+            .map_err(|e| refuse(format!("{table} {row_id}: {e}")))?;
     }
     settler
         .finish(&tx)
