@@ -1017,3 +1017,84 @@ fn a_change_set_after_a_gap_waits_and_applies_once_the_gap_is_filled() {
     assert_eq!(r.applied.len(), 2, "{r}");
     assert_eq!(crate::util::count(&b.store, "census"), 2);
 }
+
+/// `schemas/changeset.json` is the format's definition: every row a device
+/// writes fits its field list, types and constraints, and the code reads
+/// the same version and columns.
+#[test]
+fn the_format_file_describes_every_row_written() {
+    let tmp = fast_temp();
+    let target = target(&tmp);
+    let mut a = Device::tiny(&tmp, "a", SEASON_MILLIS);
+    let [v0, _] = Tiny::visits();
+    let [herb, _] = Tiny::taxa();
+    let x = CensusId(crate::util::fixed_id(100));
+    a.store
+        .write(|w| {
+            let mut c = census(100, v0, herb, 0);
+            c.notes = Some("=looked, none\nfound".into());
+            w.insert(&c)
+        })
+        .unwrap();
+    let schema = tables::get("census").unwrap();
+    a.store.write(|w| w.delete(schema, &x.to_string())).unwrap();
+    a.store
+        .write(|w| w.restore(schema, &x.to_string()))
+        .unwrap();
+    set_alive(&mut a, x, 2);
+    a.sync(&target);
+    let json: serde_json::Value =
+        serde_json::from_str(fieldcage::sync::changeset::SCHEMA_JSON).unwrap();
+    let fields = json["fields"].as_array().unwrap();
+    assert_eq!(
+        json["fieldcageFile"]["version"].as_i64(),
+        Some(fieldcage::sync::changeset::format_version())
+    );
+    let mut ops = std::collections::BTreeSet::new();
+    for file in own_files(&target, &a) {
+        let text = fs::read_to_string(&file).unwrap();
+        let mut reader = csv::ReaderBuilder::new()
+            .has_headers(false)
+            .flexible(true)
+            .from_reader(text.as_bytes());
+        let records: Vec<csv::StringRecord> = reader.records().map(|r| r.unwrap()).collect();
+        let names: Vec<&str> = fields.iter().map(|f| f["name"].as_str().unwrap()).collect();
+        assert_eq!(records[1].iter().collect::<Vec<_>>(), names);
+        let rows = &records[2..records.len() - 1];
+        assert!(!rows.is_empty());
+        for row in rows {
+            assert_eq!(row.len(), fields.len());
+            for (cell, f) in row.iter().zip(fields) {
+                let name = f["name"].as_str().unwrap();
+                let c = &f["constraints"];
+                if cell.is_empty() {
+                    assert!(c["required"].as_bool() != Some(true), "{name} is required");
+                    continue;
+                }
+                match f["type"].as_str().unwrap() {
+                    "integer" => {
+                        let n: i64 = cell.parse().unwrap();
+                        assert!(n as f64 >= c["minimum"].as_f64().unwrap_or(f64::MIN));
+                    }
+                    "string" => {}
+                    other => panic!("unexpected type {other}"),
+                }
+                if let Some(p) = c["pattern"].as_str() {
+                    let re = regex::Regex::new(p).unwrap();
+                    assert!(re.is_match(cell), "{name}: {cell:?} does not match {p}");
+                }
+                if let Some(allowed) = c["enum"].as_array() {
+                    assert!(allowed.iter().any(|a| a == cell), "{name}: {cell}");
+                }
+                if name == "op" {
+                    ops.insert(cell.to_owned());
+                }
+            }
+        }
+    }
+    assert_eq!(
+        ops.into_iter().collect::<Vec<_>>(),
+        ["delete", "insert", "restore", "update"].map(String::from),
+        "the sample covers every operation"
+    );
+}

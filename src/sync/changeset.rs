@@ -533,6 +533,25 @@ mod tests {
         assert_eq!(cs.seen.values().copied().collect::<Vec<_>>(), [9]);
     }
 
+    /// Golden bytes of a change-set (format of schemas/changeset.json). The
+    /// SHA-256 was checked with Python's hashlib, an independent
+    /// implementation (common practice).
+    #[test]
+    fn a_change_set_has_exactly_these_bytes() {
+        let (bytes, hash) = sample();
+        let expected = "fieldcage-changeset,version=1,device=0190a1b2-c3d4-7e5f-8a6b-0000000000ff,seq=4-5,rows=2,\
+                        seen=0190a1b2-c3d4-7e5f-8a6b-000000000001:9,\"name=tablet, one\"\n\
+                        seq,hlc,table_name,row_id,op,field,old_value,new_value\n\
+                        4,6553600,census,0190a1b2-c3d4-7e5f-8a6b-7c8d9e0f1a2b,update,notes,,\"t:a, \"\"quoted\"\"\nline\"\n\
+                        5,6619136,census,0190a1b2-c3d4-7e5f-8a6b-7c8d9e0f1a2b,delete,,,\n\
+                        sha256,f8d0223708d600a7cf9aad22d0177b69a09d5b68e482c4abfb3bfb658f5972cd\n";
+        assert_eq!(String::from_utf8(bytes).unwrap(), expected);
+        assert_eq!(
+            hash,
+            "f8d0223708d600a7cf9aad22d0177b69a09d5b68e482c4abfb3bfb658f5972cd"
+        );
+    }
+
     #[test]
     fn the_header_and_trailer_lines_are_as_documented() {
         let (bytes, hash) = sample();
