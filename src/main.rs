@@ -287,6 +287,8 @@ fn format_conflict(c: &sync::Conflict) -> String {
         sync::ConflictKind::Concurrent => "edited on two devices",
         sync::ConflictKind::Deleted => "edited after a delete it did not see",
         sync::ConflictKind::Duplicate => "recorded twice",
+        sync::ConflictKind::Orphan => "refers to a row that is deleted or hidden",
+        _ => "in conflict",
     };
     format!(
         "{}\n  {} {}{}: {kind}\n  in force: {}\n  other:    {}",

@@ -1098,3 +1098,92 @@ fn the_format_file_describes_every_row_written() {
         "the sample covers every operation"
     );
 }
+
+/// A census recorded on one tablet for a visit another tablet deleted, and a
+/// census of a taxon that turned out to be a duplicate: both are listed as
+/// rows referring to a gone row, and both ways of settling work.
+#[test]
+fn rows_left_referring_to_a_deleted_or_hidden_row_are_listed_and_settled() {
+    let tmp = fast_temp();
+    let target = target(&tmp);
+    let mut a = Device::tiny(&tmp, "a", SEASON_MILLIS);
+    let mut b = Device::tiny(&tmp, "b", SEASON_MILLIS);
+    let [_, v1] = Tiny::visits();
+    let [herb, _] = Tiny::taxa();
+    // a deletes visit 1 (it has no census there); b records one on it.
+    a.store
+        .write(|w| w.delete(tables::get("visit").unwrap(), &v1.to_string()))
+        .unwrap();
+    b.store
+        .write(|w| w.insert(&census(100, v1, herb, 3)))
+        .unwrap();
+    // Both add a taxon with the same code; b records a census of its own one.
+    let taxon = |n: u64| Taxon {
+        id: TaxonId(crate::util::fixed_id(n)),
+        experiment_id: Tiny::experiment(),
+        code: "NEW".into(),
+        scientific_name: format!("Animalia nova {n}"),
+        common_name: None,
+        role: Role::Herbivore,
+        plant_group: None,
+        notes: None,
+    };
+    a.store.write(|w| w.insert(&taxon(300))).unwrap();
+    b.store.write(|w| w.insert(&taxon(301))).unwrap();
+    let [v0, _] = Tiny::visits();
+    b.store
+        .write(|w| w.insert(&census(101, v0, TaxonId(crate::util::fixed_id(301)), 1)))
+        .unwrap();
+    a.sync(&target);
+    b.sync(&target);
+    a.sync(&target);
+    for d in [&a, &b] {
+        let open = sync::conflicts(&d.store).unwrap();
+        let orphans: Vec<_> = open
+            .iter()
+            .filter(|c| c.kind == ConflictKind::Orphan)
+            .collect();
+        assert_eq!(orphans.len(), 2, "{open:#?}");
+        assert_eq!(
+            open.iter()
+                .filter(|c| c.kind == ConflictKind::Duplicate)
+                .count(),
+            1,
+            "the taxon with the larger id is hidden"
+        );
+        assert_eq!(sync::open_conflict_count(&d.store).unwrap(), open.len());
+    }
+    // a takes b's side for the visit: the deleted visit comes back. The
+    // hidden taxon cannot be brought back that way (the duplicate decides
+    // which taxon is shown), so its census is deleted instead.
+    let open = sync::conflicts(&a.store).unwrap();
+    let on_visit = open
+        .iter()
+        .find(|c| c.kind == ConflictKind::Orphan && c.field.as_deref() == Some("visit_id"))
+        .unwrap();
+    assert_eq!(on_visit.current.op, fieldcage::store::Op::Delete);
+    assert!(on_visit.current.is_local && !on_visit.other.is_local);
+    sync::resolve_conflict(&mut a.store, &on_visit.key, ConflictChoice::TakeOther).unwrap();
+    assert!(
+        a.store.get::<Visit>(v1.uuid()).unwrap().is_some(),
+        "the visit is back"
+    );
+    let on_taxon = sync::conflicts(&a.store)
+        .unwrap()
+        .into_iter()
+        .find(|c| c.kind == ConflictKind::Orphan)
+        .unwrap();
+    let err = sync::resolve_conflict(&mut a.store, &on_taxon.key, ConflictChoice::TakeOther)
+        .unwrap_err()
+        .to_string();
+    assert!(err.contains("duplicate"), "{err}");
+    sync::resolve_conflict(&mut a.store, &on_taxon.key, ConflictChoice::KeepCurrent).unwrap();
+    a.sync(&target);
+    b.sync(&target);
+    for d in [&a, &b] {
+        let open = sync::conflicts(&d.store).unwrap();
+        assert_eq!(open.len(), 1, "only the duplicate taxon is left: {open:#?}");
+        assert_eq!(open[0].kind, ConflictKind::Duplicate);
+    }
+    assert_eq!(data_snapshot(&a.store), data_snapshot(&b.store));
+}

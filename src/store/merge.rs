@@ -322,6 +322,9 @@ pub(crate) struct Settler {
     group_values: HashMap<Group, Vec<Value>>,
     /// Groups to settle that have no pending row.
     extra: HashSet<Group>,
+    /// Whether each table had hidden rows when this settling began (rows
+    /// hidden meanwhile are pending in memory).
+    tables_with_hidden: HashMap<String, bool>,
 }
 
 impl Settler {
@@ -369,8 +372,27 @@ impl Settler {
                 table: schema.name.clone(),
                 key_text: key_text(&values),
             };
-            if exists || self.may_clash(conn, schema, &group, &values)? {
+            if exists || self.pending.contains_key(&group) || self.hidden_with_key(conn, &group)? {
                 hold = Some((group, values));
+            } else {
+                // A new row goes in live; the unique index tells whether a
+                // live row holds its key (then it waits for the group to be
+                // settled like the others).
+                let mut args = row.clone();
+                args.push(Value::Integer(0));
+                match conn
+                    .prepare_cached(&sql.insert_row)?
+                    .execute(rusqlite::params_from_iter(args.iter()))
+                {
+                    Ok(_) => {
+                        if !state.conflicts.is_empty() {
+                            write_conflicts(conn, &schema.name, row_id, &state.conflicts)?;
+                        }
+                        return Ok(());
+                    }
+                    Err(e) if is_unique_violation(&e) => hold = Some((group, values)),
+                    Err(e) => return Err(e.into()),
+                }
             }
         }
         let mut args = row;
@@ -395,23 +417,23 @@ impl Settler {
         Ok(())
     }
 
-    /// Whether a new row's key may be held by another row: a live one, a
-    /// hidden one or one waiting in this transaction.
-    fn may_clash(
-        &self,
-        conn: &Connection,
-        schema: &TableSchema,
-        group: &Group,
-        values: &[Value],
-    ) -> Result<bool> {
-        if self.pending.contains_key(group) {
-            return Ok(true);
-        }
-        let live: bool = conn
-            .prepare_cached(&table_sql(schema).live_by_key_exists)?
-            .query_row(rusqlite::params_from_iter(values.iter()), |r| r.get(0))?;
-        if live {
-            return Ok(true);
+    /// Whether a row hidden as a duplicate has this key (asked of the
+    /// database only for tables that have hidden rows at all).
+    fn hidden_with_key(&mut self, conn: &Connection, group: &Group) -> Result<bool> {
+        let any = match self.tables_with_hidden.get(&group.table) {
+            Some(any) => *any,
+            None => {
+                let any: bool = conn
+                    .prepare_cached(
+                        "SELECT EXISTS (SELECT 1 FROM sync_hidden WHERE table_name = ?1)",
+                    )?
+                    .query_row([&group.table], |r| r.get(0))?;
+                self.tables_with_hidden.insert(group.table.clone(), any);
+                any
+            }
+        };
+        if !any {
+            return Ok(false);
         }
         Ok(conn
             .prepare_cached(
@@ -523,6 +545,14 @@ fn settle_group(
     Ok(())
 }
 
+fn is_unique_violation(e: &rusqlite::Error) -> bool {
+    matches!(
+        e,
+        rusqlite::Error::SqliteFailure(f, _)
+            if f.extended_code == rusqlite::ffi::SQLITE_CONSTRAINT_UNIQUE
+    )
+}
+
 /// The statements the merge runs on each table, made once.
 struct TableSql {
     select_row: String,
@@ -530,8 +560,6 @@ struct TableSql {
     insert_row: String,
     /// Ids of live rows with the natural key's values (?1..).
     live_by_key: String,
-    /// Whether a live row has the natural key's values (?1..).
-    live_by_key_exists: String,
 }
 
 fn table_sql(schema: &TableSchema) -> &'static TableSql {
@@ -592,10 +620,6 @@ impl TableSql {
             ),
             live_by_key: format!(
                 "SELECT id FROM {} WHERE deleted = 0 AND {cond}",
-                schema.name
-            ),
-            live_by_key_exists: format!(
-                "SELECT EXISTS (SELECT 1 FROM {} WHERE deleted = 0 AND {cond})",
                 schema.name
             ),
         }

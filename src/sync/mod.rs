@@ -168,8 +168,9 @@ impl ClockAnomaly {
                     .unwrap_or_default()
             ),
             AnomalyKind::Behind => format!(
-                "this device's clock is {days:.1} days behind the newest change it holds; changes \
-                 are still ordered correctly — set the tablet's date"
+                "this device's clock is {days:.1} days behind the newest change it holds (its own \
+                 or another tablet's); changes are still ordered correctly — check this tablet's \
+                 date, and if it is right, the clock of the tablet flagged as ahead"
             ),
         }
     }
@@ -445,7 +446,7 @@ pub fn sync_with(store: &mut Store, target: &Path, options: &SyncOptions) -> Res
         ],
     );
     result?;
-    report.open_conflicts = open_conflict_count(store.conn())?;
+    report.open_conflicts = open_conflict_count(store)?;
     report.pending_changes = pending_changes(store)?;
     report.finished_at = finished;
     Ok(report)
@@ -469,13 +470,15 @@ pub(crate) fn timestamp(millis: i64) -> String {
         .to_rfc3339_opts(chrono::SecondsFormat::Millis, true)
 }
 
-fn open_conflict_count(conn: &Connection) -> Result<usize> {
+/// How many conflicts [`conflicts`] would list.
+pub fn open_conflict_count(store: &Store) -> Result<usize> {
+    let conn = store.conn();
     let n: i64 = conn.query_row(
         "SELECT (SELECT count(*) FROM sync_conflict) + (SELECT count(*) FROM sync_hidden)",
         [],
         |r| r.get(0),
     )?;
-    Ok(n as usize)
+    Ok(n as usize + conflicts::orphan_rows(conn)?.len())
 }
 
 fn last_written(conn: &Connection) -> Result<i64> {
