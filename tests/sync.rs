@@ -1187,3 +1187,21 @@ fn rows_left_referring_to_a_deleted_or_hidden_row_are_listed_and_settled() {
     }
     assert_eq!(data_snapshot(&a.store), data_snapshot(&b.store));
 }
+
+/// Tablets set up with different seeds share no setup rows: sync keeps
+/// everything, lists the duplicates and says what went wrong.
+#[test]
+fn tablets_set_up_with_different_seeds_are_told_so() {
+    let tmp = Temp::new();
+    let target = target(&tmp);
+    let def = fieldcage::demo::definition().unwrap();
+    let mut a = tmp.store("a.db");
+    let mut b = tmp.store("b.db");
+    fieldcage::setup::init(&mut a, &def, 1).unwrap();
+    fieldcage::setup::init(&mut b, &def, 2).unwrap();
+    sync::sync_once(&mut a, &target).unwrap();
+    let r = sync::sync_once(&mut b, &target).unwrap();
+    assert!(r.warnings.iter().any(|w| w.contains("same seed")), "{r}");
+    assert_eq!(crate::util::count(&b, "experiment"), 1, "one is shown");
+    assert!(r.open_conflicts > 24, "every cage at least: {r}");
+}

@@ -460,6 +460,20 @@ fn run(
 ) -> Result<()> {
     write_own(store, target, options, report)?;
     apply_others(store, target, options, report)?;
+    let setups: i64 = store.conn().query_row(
+        "SELECT count(*) FROM sync_hidden WHERE table_name = 'experiment'",
+        [],
+        |r| r.get(0),
+    )?;
+    if setups > 0 {
+        report.warnings.push(
+            "tablets in this target were set up differently (another definition file or another \
+             seed): their experiments, cages and taxa are listed as duplicates. Set every tablet \
+             up from the same file with the same seed, or start a tablet empty and let sync \
+             bring the setup."
+                .to_owned(),
+        );
+    }
     notice_local_clock(store, options, report)
 }
 
