@@ -1,7 +1,9 @@
 //! The benchmark behind `fieldcage bench`: builds a synthetic season of a
 //! given size ([`crate::synth`]) and times each stage on it: the build, the
 //! day's-end checks over the whole season, the export (which includes the
-//! analysis tables), the analysis on its own and the import. Figures are
+//! analysis tables), the analysis on its own and the import; then a crew of
+//! tablets records the same season between them and a new tablet merges all
+//! their change-sets, and syncs again with nothing new. Figures are
 //! wall-clock seconds of one run on this machine; run in release mode.
 
 use std::path::Path;
@@ -10,6 +12,7 @@ use std::time::Instant;
 use crate::Result;
 use crate::checks::Scope;
 use crate::store::Store;
+use crate::sync;
 use crate::synth::{self, SeasonSize};
 
 /// One line of the benchmark table.
@@ -86,8 +89,36 @@ pub fn run(size: SeasonSize, dir: &Path) -> Result<Vec<Timing>> {
     time("import tidy tables", "all tables".to_owned(), &mut || {
         crate::import::import(&mut copy, &export_dir).map(drop)
     })?;
+    drop((store, copy));
+    // A crew of tablets records the season between them, each its share of
+    // the cages, and syncs into one folder.
+    let target = dir.join("target");
+    std::fs::create_dir_all(&target).map_err(|e| crate::Error::io(&target, e))?;
+    let mut files = 0;
+    let mut entries = 0;
+    for k in 0..CREW {
+        let mut tablet = Store::open(dir.join(format!("tablet-{k}.db")))?;
+        synth::build_share(&mut tablet, size, 1, k, CREW)?;
+        entries += tablet.change_count()?;
+        files += sync::sync_once(&mut tablet, &target)?.written.len();
+    }
+    let mut joining = Store::open(dir.join("new-tablet.db"))?;
+    synth::set_up(&mut joining, size, 1)?;
+    time(
+        "sync: a new tablet merges the crew's change-sets",
+        format!("{CREW} tablets, {files} change-sets, {entries} logged changes"),
+        &mut || sync::sync_once(&mut joining, &target).map(drop),
+    )?;
+    time(
+        "sync: repeat sync with nothing new",
+        format!("{files} change-sets in the target"),
+        &mut || sync::sync_once(&mut joining, &target).map(drop),
+    )?;
     Ok(out)
 }
+
+/// Tablets in the benchmark's crew.
+pub const CREW: usize = 10;
 
 /// The timings as a Markdown table.
 pub fn format_table(size: SeasonSize, timings: &[Timing]) -> String {

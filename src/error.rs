@@ -74,6 +74,27 @@ pub enum Error {
         /// The underlying error.
         source: std::io::Error,
     },
+    /// A change-set file is not one that may be applied; nothing of it was.
+    #[error("{file}: {reason}")]
+    ChangeSet {
+        /// The file, as found in the sync target.
+        file: PathBuf,
+        /// What is wrong (with the line and field where one applies).
+        reason: String,
+    },
+    /// The sync target cannot be used now (missing, unmounted, read-only);
+    /// try again later.
+    #[error("sync target {target}: {reason}")]
+    TargetUnavailable {
+        /// The target folder.
+        target: PathBuf,
+        /// Why it cannot be used.
+        reason: String,
+    },
+    /// Sync was refused because another database uses this device's
+    /// identity (a copy or a restored backup); retrying will not help.
+    #[error("{0}")]
+    DeviceClash(String),
     /// SQLite reported an error.
     #[error("database: {0}")]
     Sqlite(#[from] rusqlite::Error),

@@ -19,6 +19,7 @@ pub mod server;
 pub mod service;
 pub mod setup;
 pub mod store;
+pub mod sync;
 pub mod synth;
 pub mod tables;
 

@@ -6,7 +6,7 @@ use std::process::ExitCode;
 
 use anyhow::Context;
 use clap::{Parser, Subcommand};
-use fieldcage::{Store, analysis, checks, demo, export, import, setup};
+use fieldcage::{Store, analysis, checks, demo, export, import, setup, sync};
 
 /// Offline-first field recorder for cage experiments on predators, herbivores and plants.
 #[derive(Debug, Parser)]
@@ -124,6 +124,46 @@ enum Command {
     /// the analysis functions (see fieldcage::analysis::probe).
     #[command(hide = true, name = "analysis-probe")]
     AnalysisProbe,
+    /// Write this device's new changes into a shared folder and apply every
+    /// other device's changes found there.
+    Sync {
+        /// The database file.
+        #[arg(long)]
+        db: PathBuf,
+        /// The shared folder (USB stick, station laptop share, network folder).
+        #[arg(long)]
+        target: PathBuf,
+    },
+    /// Show this device's identity and sync state; --name renames the device.
+    Device {
+        /// The database file.
+        #[arg(long)]
+        db: PathBuf,
+        /// A new human name for this device (shown to the other devices).
+        #[arg(long)]
+        name: Option<String>,
+    },
+    /// List the conflicts left by sync; --keep or --take settles one.
+    Conflicts {
+        /// The database file.
+        #[arg(long)]
+        db: PathBuf,
+        /// Keep the version in force for the conflict with this key.
+        #[arg(long, conflicts_with = "take")]
+        keep: Option<String>,
+        /// Take the other version for the conflict with this key.
+        #[arg(long)]
+        take: Option<String>,
+    },
+    /// Copy the database with SQLite's backup API (safe while it is in use).
+    Backup {
+        /// The database file.
+        #[arg(long)]
+        db: PathBuf,
+        /// The new copy (must not exist).
+        #[arg(long)]
+        to: PathBuf,
+    },
     /// Time each stage on a synthetic season (run with --release).
     Bench {
         /// Cages (rounded up to a multiple of 4).
@@ -310,6 +350,59 @@ fn run(cli: Cli) -> anyhow::Result<ExitCode> {
                 .context("reading the request on standard input")?;
             println!("{}", analysis::probe::run(&input)?);
         }
+        Command::Sync { db, target } => {
+            let mut store = existing_database(&db)?;
+            let report = sync::sync_once(&mut store, &target)?;
+            print!("{report}");
+        }
+        Command::Device { db, name } => {
+            let mut store = existing_database(&db)?;
+            if let Some(name) = name {
+                store.set_device_name(&name)?;
+            }
+            println!("device id:   {}", store.device_id());
+            println!("device name: {}", store.device_name()?);
+            println!(
+                "changes not yet written for sync: {}",
+                sync::pending_changes(&store)?
+            );
+            match sync::last_success(&store)? {
+                Some(run) => println!("last sync:   {} with {}", run.finished_at, run.target),
+                None => println!("last sync:   never"),
+            }
+            println!("open conflicts: {}", sync::conflicts(&store)?.len());
+            for a in sync::clock_anomalies(&store)? {
+                println!("clock ({}): {}", a.noticed_at, a.describe());
+            }
+        }
+        Command::Conflicts { db, keep, take } => {
+            let mut store = existing_database(&db)?;
+            let choice = match (keep, take) {
+                (Some(key), _) => Some((key, sync::ConflictChoice::KeepCurrent)),
+                (_, Some(key)) => Some((key, sync::ConflictChoice::TakeOther)),
+                _ => None,
+            };
+            if let Some((key, choice)) = choice {
+                sync::resolve_conflict(&mut store, &key, choice)?;
+                println!("settled {key}");
+            }
+            let open = sync::conflicts(&store)?;
+            if open.is_empty() {
+                println!("no open conflicts");
+            }
+            for c in open {
+                println!("{}", format_conflict(&c));
+            }
+        }
+        Command::Backup { db, to } => {
+            let store = existing_database(&db)?;
+            store.backup_to(&to)?;
+            println!(
+                "copied {} to {} (a copy for safekeeping: never sync it as a second device)",
+                db.display(),
+                to.display()
+            );
+        }
         Command::Bench {
             cages,
             visits,
@@ -373,6 +466,43 @@ fn run(cli: Cli) -> anyhow::Result<ExitCode> {
         }
     }
     Ok(ExitCode::SUCCESS)
+}
+
+/// One conflict as text for the terminal.
+fn format_conflict(c: &sync::Conflict) -> String {
+    use fieldcage::tables::display_value;
+    let side = |v: &sync::Version| {
+        let what = match (c.kind, v.op) {
+            (sync::ConflictKind::Duplicate, _) => format!("row {}", v.row_id),
+            (_, fieldcage::store::Op::Delete) => "deleted the row".to_owned(),
+            (_, fieldcage::store::Op::Restore) => "restored the row".to_owned(),
+            _ => display_value(&v.value),
+        };
+        format!(
+            "{what} ({}{})",
+            v.device_name,
+            if v.is_local { ", this device" } else { "" }
+        )
+    };
+    let kind = match c.kind {
+        sync::ConflictKind::Concurrent => "edited on two devices",
+        sync::ConflictKind::Deleted => "edited after a delete it did not see",
+        sync::ConflictKind::Duplicate => "recorded twice",
+        sync::ConflictKind::Orphan => "refers to a row that is deleted or hidden",
+        _ => "in conflict",
+    };
+    format!(
+        "{}\n  {} {}{}: {kind}\n  in force: {}\n  other:    {}",
+        c.key,
+        c.table,
+        c.row_id,
+        c.field
+            .as_deref()
+            .map(|f| format!(".{f}"))
+            .unwrap_or_default(),
+        side(&c.current),
+        side(&c.other)
+    )
 }
 
 /// Remove a database that `init` created but could not fill.

@@ -116,10 +116,41 @@ pub fn definition_text(size: SeasonSize) -> String {
 
 /// Build a synthetic season into an empty database.
 pub fn build(store: &mut Store, size: SeasonSize, seed: u64) -> Result<()> {
+    build_share(store, size, seed, 0, 1)
+}
+
+/// Set up a synthetic season in an empty database without recording visits
+/// (a tablet that joins the crew). The setup rows are the same as those of
+/// [`build`] and [`build_share`] with the same seed.
+pub fn set_up(store: &mut Store, size: SeasonSize, seed: u64) -> Result<()> {
     let def = setup::definition::parse(Path::new("synthetic.toml"), &definition_text(size))?;
-    store.use_seeded_ids(seed, 1_775_000_000_000);
+    setup::init(store, &def, seed).map(drop)
+}
+
+/// Set up a synthetic season in an empty database and record the visits of
+/// the cages whose position modulo `devices` is `share`: one tablet of a crew
+/// of `devices` (ids seeded by `seed` and the share, so that tablets never
+/// make the same id; the setup is the same on every tablet).
+pub fn build_share(
+    store: &mut Store,
+    size: SeasonSize,
+    seed: u64,
+    share: usize,
+    devices: usize,
+) -> Result<()> {
+    let def = setup::definition::parse(Path::new("synthetic.toml"), &definition_text(size))?;
+    store.use_seeded_ids(
+        seed.wrapping_add(share as u64 * 1_000_003),
+        1_775_000_000_000,
+    );
     setup::init(store, &def, seed)?;
-    let enclosures = store.list::<Enclosure>()?;
+    let enclosures: Vec<Enclosure> = store
+        .list::<Enclosure>()?
+        .into_iter()
+        .enumerate()
+        .filter(|(i, _)| i % devices.max(1) == share)
+        .map(|(_, e)| e)
+        .collect();
     let taxa = store.list::<Taxon>()?;
     let plants: Vec<TaxonId> = taxa
         .iter()
@@ -145,7 +176,7 @@ pub fn build(store: &mut Store, size: SeasonSize, seed: u64) -> Result<()> {
     let start =
         NaiveDate::from_ymd_opt(2026, 4, 1).ok_or_else(|| Error::State("bad start date".into()))?;
     let utc = FixedOffset::east_opt(0).ok_or_else(|| Error::State("bad offset".into()))?;
-    let mut rng = ChaCha8Rng::seed_from_u64(seed);
+    let mut rng = ChaCha8Rng::seed_from_u64(seed.wrapping_add(share as u64));
     store.write(|w| {
         for (i, e) in enclosures.iter().enumerate() {
             let at = |day: usize, minute: usize| {

@@ -224,3 +224,96 @@ fn check_lists_flags_and_fails_while_errors_are_open() {
     assert_eq!(exit_code(&unknown), Some(2));
     assert!(String::from_utf8_lossy(&unknown.stderr).contains("C-99"));
 }
+
+/// Two tablets set up from the shipped definition with the same seed sync
+/// through a folder; a concurrent edit shows as a conflict and is settled
+/// from the command line; a backup copy is refused as a second device.
+#[test]
+fn two_tablets_sync_through_a_folder_from_the_command_line() {
+    let tmp = Temp::new();
+    let cwd = tmp.dir.path();
+    let def = Path::new(env!("CARGO_MANIFEST_DIR")).join("demo_data/definition.toml");
+    std::fs::create_dir(cwd.join("share")).unwrap();
+    for db in ["a.db", "b.db"] {
+        ok(&fieldcage(
+            &["init", "--db", db, def.to_str().unwrap(), "--seed", "5"],
+            cwd,
+        ));
+    }
+    let out = ok(&fieldcage(
+        &["device", "--db", "a.db", "--name", "Tablet at the gate"],
+        cwd,
+    ));
+    assert!(out.contains("device name: Tablet at the gate"), "{out}");
+    assert!(out.contains("last sync:   never"), "{out}");
+    // Both edit one treatment's notes before they have synced.
+    for (db, note) in [("a.db", "mesh torn"), ("b.db", "mesh mended")] {
+        let store = fieldcage::Store::open(cwd.join(db)).unwrap();
+        let mut t = store.list::<fieldcage::model::Treatment>().unwrap()[0].clone();
+        drop(store);
+        t.notes = Some(note.into());
+        let mut store = fieldcage::Store::open(cwd.join(db)).unwrap();
+        store.write(|w| w.update(&t)).unwrap();
+    }
+    let out = ok(&fieldcage(
+        &["sync", "--db", "a.db", "--target", "share"],
+        cwd,
+    ));
+    assert!(out.contains("1 written, 0 applied"), "{out}");
+    let out = ok(&fieldcage(
+        &["sync", "--db", "b.db", "--target", "share"],
+        cwd,
+    ));
+    assert!(
+        out.contains("applied") && out.contains("Tablet at the gate"),
+        "{out}"
+    );
+    assert!(out.contains("1 conflict(s) open"), "{out}");
+    let list = ok(&fieldcage(&["conflicts", "--db", "b.db"], cwd));
+    assert!(list.contains("edited on two devices"), "{list}");
+    let key = list.lines().next().unwrap().to_owned();
+    let out = ok(&fieldcage(
+        &["conflicts", "--db", "b.db", "--keep", &key],
+        cwd,
+    ));
+    assert!(out.contains("no open conflicts"), "{out}");
+    ok(&fieldcage(
+        &["sync", "--db", "b.db", "--target", "share"],
+        cwd,
+    ));
+    let out = ok(&fieldcage(
+        &["sync", "--db", "a.db", "--target", "share"],
+        cwd,
+    ));
+    assert!(out.contains("0 conflict(s) open"), "{out}");
+    // A copy made for safekeeping must never sync as a second device.
+    ok(&fieldcage(
+        &["backup", "--db", "a.db", "--to", "copy.db"],
+        cwd,
+    ));
+    let store = fieldcage::Store::open(cwd.join("copy.db")).unwrap();
+    let mut t = store.list::<fieldcage::model::Treatment>().unwrap()[1].clone();
+    drop(store);
+    t.notes = Some("written on the copy".into());
+    let mut store = fieldcage::Store::open(cwd.join("copy.db")).unwrap();
+    store.write(|w| w.update(&t)).unwrap();
+    drop(store);
+    let store = fieldcage::Store::open(cwd.join("a.db")).unwrap();
+    let mut t = store.list::<fieldcage::model::Treatment>().unwrap()[2].clone();
+    drop(store);
+    t.notes = Some("written on the original".into());
+    let mut store = fieldcage::Store::open(cwd.join("a.db")).unwrap();
+    store.write(|w| w.update(&t)).unwrap();
+    drop(store);
+    ok(&fieldcage(
+        &["sync", "--db", "a.db", "--target", "share"],
+        cwd,
+    ));
+    let out = fieldcage(&["sync", "--db", "copy.db", "--target", "share"], cwd);
+    assert_eq!(out.status.code(), Some(2));
+    let err = String::from_utf8_lossy(&out.stderr);
+    assert!(err.contains("identity") && err.contains("backup"), "{err}");
+    let out = fieldcage(&["sync", "--db", "a.db", "--target", "missing"], cwd);
+    assert_eq!(out.status.code(), Some(2));
+    assert!(String::from_utf8_lossy(&out.stderr).contains("missing"));
+}

@@ -17,4 +17,7 @@ mod record;
 mod schema;
 mod setup;
 mod store;
+mod sync;
+mod sync_orders;
+mod sync_props;
 mod transfer;

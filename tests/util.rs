@@ -122,3 +122,234 @@ pub fn data_snapshot(store: &Store) -> String {
     }
     out
 }
+
+/// A temporary folder on a RAM disk when the system has one (`/dev/shm`):
+/// sync tests flush files and databases thousands of times, which costs
+/// nothing there.
+pub fn fast_temp() -> Temp {
+    let shm = std::path::Path::new("/dev/shm");
+    let dir = if shm.is_dir() {
+        tempfile::tempdir_in(shm).expect("temp dir in /dev/shm")
+    } else {
+        tempfile::tempdir().expect("temp dir")
+    };
+    Temp { dir }
+}
+
+/// A clock a test can set: milliseconds since the Unix epoch.
+#[derive(Clone)]
+pub struct TestClock(pub std::sync::Arc<std::sync::atomic::AtomicI64>);
+
+impl TestClock {
+    pub fn at(millis: i64) -> TestClock {
+        TestClock(std::sync::Arc::new(std::sync::atomic::AtomicI64::new(
+            millis,
+        )))
+    }
+
+    pub fn advance(&self, millis: i64) {
+        self.0
+            .fetch_add(millis, std::sync::atomic::Ordering::SeqCst);
+    }
+
+    pub fn clock(&self) -> fieldcage::store::Clock {
+        let c = self.0.clone();
+        std::sync::Arc::new(move || c.load(std::sync::atomic::Ordering::SeqCst))
+    }
+}
+
+/// 2026-05-11T08:00:00Z, a date inside the invented demo season.
+pub const SEASON_MILLIS: i64 = 1_778_486_400_000;
+
+/// A fixed UUIDv7 for test rows: `n` in the random part.
+pub fn fixed_id(n: u64) -> uuid::Uuid {
+    let mut bytes = [0u8; 10];
+    bytes[2..].copy_from_slice(&n.to_be_bytes());
+    uuid::Builder::from_unix_timestamp_millis(1_778_400_000_000, &bytes).into_uuid()
+}
+
+/// The rows of a tiny experiment with fixed ids: 1 site, 1 block, 2
+/// treatments, 2 cages, an herbivore and a predator, and one census visit
+/// per cage. Every device that writes it holds the same rows (as tablets set
+/// up from one definition do).
+pub struct Tiny;
+
+impl Tiny {
+    pub fn experiment() -> fieldcage::model::ExperimentId {
+        fieldcage::model::ExperimentId(fixed_id(1))
+    }
+    pub fn treatments() -> [fieldcage::model::TreatmentId; 2] {
+        [
+            fieldcage::model::TreatmentId(fixed_id(4)),
+            fieldcage::model::TreatmentId(fixed_id(5)),
+        ]
+    }
+    pub fn cages() -> [fieldcage::model::EnclosureId; 2] {
+        [
+            fieldcage::model::EnclosureId(fixed_id(6)),
+            fieldcage::model::EnclosureId(fixed_id(7)),
+        ]
+    }
+    pub fn taxa() -> [fieldcage::model::TaxonId; 2] {
+        [
+            fieldcage::model::TaxonId(fixed_id(8)),
+            fieldcage::model::TaxonId(fixed_id(9)),
+        ]
+    }
+    pub fn visits() -> [fieldcage::model::VisitId; 2] {
+        [
+            fieldcage::model::VisitId(fixed_id(10)),
+            fieldcage::model::VisitId(fixed_id(11)),
+        ]
+    }
+
+    /// Write the tiny experiment through the write path.
+    pub fn write(store: &mut Store) {
+        use fieldcage::model::*;
+        store
+            .write(|w| {
+                let eid = Tiny::experiment();
+                w.insert(&Experiment {
+                    id: eid,
+                    code: "tiny".into(),
+                    title: "Tiny test experiment (invented)".into(),
+                    start_date: chrono::NaiveDate::from_ymd_opt(2026, 5, 11).unwrap(),
+                    end_date: None,
+                    utc_offset: "+00:00".into(),
+                    design: Design::Rcbd,
+                    randomisation_seed: Some(1),
+                    notes: None,
+                })?;
+                let site = SiteId(fixed_id(2));
+                w.insert(&Site {
+                    id: site,
+                    experiment_id: eid,
+                    code: "S".into(),
+                    name: "Test site".into(),
+                    latitude: None,
+                    longitude: None,
+                    notes: None,
+                })?;
+                let block = BlockId(fixed_id(3));
+                w.insert(&Block {
+                    id: block,
+                    site_id: site,
+                    code: "B1".into(),
+                    notes: None,
+                })?;
+                for (i, t) in Tiny::treatments().into_iter().enumerate() {
+                    w.insert(&Treatment {
+                        id: t,
+                        experiment_id: eid,
+                        code: format!("T{i}"),
+                        name: format!("Treatment {i}"),
+                        herbivores: true,
+                        predator_mode: PredatorMode::None,
+                        notes: None,
+                    })?;
+                }
+                for (i, c) in Tiny::cages().into_iter().enumerate() {
+                    w.insert(&Enclosure {
+                        id: c,
+                        block_id: block,
+                        label: format!("C-{i}"),
+                        area_m2: 0.5,
+                        height_m: Some(1.0),
+                        mesh_mm: None,
+                        x_m: None,
+                        y_m: None,
+                        notes: None,
+                    })?;
+                }
+                for (i, t) in Tiny::taxa().into_iter().enumerate() {
+                    w.insert(&Taxon {
+                        id: t,
+                        experiment_id: eid,
+                        code: format!("A{i}"),
+                        scientific_name: format!("Animalia testis {i}"),
+                        common_name: None,
+                        role: if i == 0 {
+                            Role::Herbivore
+                        } else {
+                            Role::Predator
+                        },
+                        plant_group: None,
+                        notes: None,
+                    })?;
+                }
+                for (c, v) in Tiny::cages().into_iter().zip(Tiny::visits()) {
+                    w.insert(&Visit {
+                        id: v,
+                        enclosure_id: c,
+                        kind: VisitKind::Census,
+                        day: Some(3),
+                        visited_at: chrono::DateTime::parse_from_rfc3339(
+                            "2026-05-14T09:00:00+00:00",
+                        )
+                        .unwrap(),
+                        observer: None,
+                        device: None,
+                        completed: true,
+                        notes: None,
+                    })?;
+                }
+                Ok(())
+            })
+            .expect("tiny experiment");
+    }
+}
+
+/// A device (tablet) of a sync test: its own database and its own clock.
+pub struct Device {
+    pub store: Store,
+    pub clock: TestClock,
+}
+
+impl Device {
+    /// A new device in `tmp` with the tiny experiment written, its clock at
+    /// `millis`.
+    pub fn tiny(tmp: &Temp, name: &str, millis: i64) -> Device {
+        let mut d = Device::empty(tmp, name, millis);
+        Tiny::write(&mut d.store);
+        d
+    }
+
+    /// A new device with an empty database (copied from a migrated template
+    /// with the backup API: creating the schema is most of the cost of a new
+    /// database, and the sync tests make thousands). It gets its own identity
+    /// when first opened.
+    pub fn empty(tmp: &Temp, name: &str, millis: i64) -> Device {
+        let clock = TestClock::at(millis);
+        let path = tmp.path(&format!("{name}.db"));
+        {
+            let template = template();
+            let mut copy = rusqlite::Connection::open(&path).unwrap();
+            rusqlite::backup::Backup::new(&template, &mut copy)
+                .unwrap()
+                .run_to_completion(1 << 20, std::time::Duration::ZERO, None)
+                .unwrap();
+        }
+        let mut store = Store::open_with_clock(&path, clock.clock()).unwrap();
+        store.set_device_name(name).unwrap();
+        Device { store, clock }
+    }
+
+    /// One sync run against `target`.
+    pub fn sync(&mut self, target: &std::path::Path) -> fieldcage::sync::SyncReport {
+        fieldcage::sync::sync_once(&mut self.store, target).unwrap()
+    }
+}
+
+/// A database with every migration applied and no device identity yet.
+fn template() -> std::sync::MutexGuard<'static, rusqlite::Connection> {
+    static TEMPLATE: std::sync::OnceLock<std::sync::Mutex<rusqlite::Connection>> =
+        std::sync::OnceLock::new();
+    TEMPLATE
+        .get_or_init(|| {
+            let mut conn = rusqlite::Connection::open_in_memory().unwrap();
+            fieldcage::store::migrations::migrate(&mut conn).unwrap();
+            std::sync::Mutex::new(conn)
+        })
+        .lock()
+        .unwrap_or_else(|e| e.into_inner())
+}

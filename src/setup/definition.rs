@@ -43,6 +43,9 @@ pub struct Definition {
     pub damage: RawDamage,
     /// Planned visits: (kind, day, grace days), sorted.
     pub schedule: Vec<(VisitKind, i64, i64)>,
+    /// SHA-256 of the file's text (line endings as LF): two tablets set up
+    /// from the same file get the same setup rows.
+    pub text_sha256: [u8; 32],
 }
 
 /// `[experiment]`.
@@ -675,7 +678,14 @@ pub fn parse(path: &Path, text: &str) -> Result<Definition> {
         cover,
         damage,
         schedule,
+        text_sha256: text_sha256(text),
     })
+}
+
+/// SHA-256 of a definition's text with CRLF line endings read as LF.
+fn text_sha256(text: &str) -> [u8; 32] {
+    use sha2::{Digest, Sha256};
+    Sha256::digest(text.replace("\r\n", "\n").as_bytes()).into()
 }
 
 impl Definition {

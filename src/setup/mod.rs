@@ -9,7 +9,7 @@ use std::collections::HashMap;
 pub use definition::Definition;
 
 use crate::model::*;
-use crate::store::{Store, Writer};
+use crate::store::{IdMaker, Store, Writer};
 use crate::{Error, Result};
 
 /// What `init` created.
@@ -33,7 +33,39 @@ pub fn fresh_seed() -> u64 {
 
 /// Create the experiment of `def` in an empty database and randomise the
 /// treatments (seeded). Refused if the database already holds an experiment.
+///
+/// The ids of the rows made here come from the definition's text and the
+/// seed, not from the clock: every tablet initialised from the same file
+/// with the same seed holds the very same setup rows, so the tablets can
+/// sync with one another (their setup entries agree, field by field).
 pub fn init(store: &mut Store, def: &Definition, seed: u64) -> Result<InitSummary> {
+    let ids = setup_ids(def, seed);
+    let previous = store.swap_ids(ids);
+    let result = init_rows(store, def, seed);
+    store.swap_ids(previous);
+    result
+}
+
+/// The id maker of a setup: seeded from the definition text and the seed;
+/// timestamps count up from the day before the experiment starts (so setup
+/// rows sort before every field record).
+fn setup_ids(def: &Definition, seed: u64) -> IdMaker {
+    use sha2::{Digest, Sha256};
+    let mut h = Sha256::new();
+    h.update(b"fieldcage setup ids\n");
+    h.update(def.text_sha256);
+    h.update(seed.to_le_bytes());
+    let start = def
+        .start_date()
+        .and_hms_opt(0, 0, 0)
+        .unwrap_or_default()
+        .and_utc()
+        .timestamp_millis()
+        - 86_400_000;
+    IdMaker::seeded(h.finalize().into(), start.max(0) as u64)
+}
+
+fn init_rows(store: &mut Store, def: &Definition, seed: u64) -> Result<InitSummary> {
     let seed_i64 = i64::try_from(seed).map_err(|_| {
         Error::invalid(
             "init",

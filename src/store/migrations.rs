@@ -16,6 +16,10 @@ pub const MIGRATIONS: &[(&str, &str)] = &[
         "0002_flags",
         include_str!("../../schemas/sqlite/0002_flags.sql"),
     ),
+    (
+        "0003_sync",
+        include_str!("../../schemas/sqlite/0003_sync.sql"),
+    ),
 ];
 
 /// The schema version this build writes.

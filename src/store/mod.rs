@@ -9,8 +9,10 @@
 //! the commit returns.
 
 mod hlc;
+pub(crate) mod merge;
 pub mod migrations;
 mod rows;
+pub mod typed_text;
 mod writer;
 
 use std::path::{Path, PathBuf};
@@ -38,9 +40,50 @@ pub fn system_clock() -> Clock {
     Arc::new(|| chrono::Utc::now().timestamp_millis())
 }
 
+/// What a change-log entry did.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Hash)]
+pub enum Op {
+    /// A new row: one entry per non-empty field.
+    Insert,
+    /// A changed field.
+    Update,
+    /// A row tombstoned (no field).
+    Delete,
+    /// A tombstoned row made live again (no field).
+    Restore,
+}
+
+impl Op {
+    /// The word stored in `change_log.op`.
+    pub fn as_str(self) -> &'static str {
+        match self {
+            Op::Insert => "insert",
+            Op::Update => "update",
+            Op::Delete => "delete",
+            Op::Restore => "restore",
+        }
+    }
+
+    /// Read the word stored in `change_log.op`.
+    pub fn parse(word: &str) -> Option<Op> {
+        Some(match word {
+            "insert" => Op::Insert,
+            "update" => Op::Update,
+            "delete" => Op::Delete,
+            "restore" => Op::Restore,
+            _ => return None,
+        })
+    }
+
+    /// Whether the entry is about the row's existence rather than a field.
+    pub fn is_existence(self) -> bool {
+        matches!(self, Op::Delete | Op::Restore)
+    }
+}
+
 /// How new row ids are made.
 #[derive(Debug)]
-enum IdMaker {
+pub(crate) enum IdMaker {
     /// UUIDv7 from the system clock and the OS random source.
     Clock,
     /// Deterministic UUIDv7s (for the reproducible demo season): a
@@ -104,6 +147,73 @@ impl Store {
         &self.conn
     }
 
+    /// This device's human name (shown to other devices in sync).
+    pub fn device_name(&self) -> Result<String> {
+        Ok(self.conn.query_row(
+            "SELECT name FROM local_device WHERE singleton = 1",
+            [],
+            |r| r.get(0),
+        )?)
+    }
+
+    /// Rename this device. The name travels in the change-sets this device
+    /// writes from now on; it must be 1 to 60 characters without line breaks.
+    pub fn set_device_name(&mut self, name: &str) -> Result<()> {
+        let trimmed = name.trim();
+        if trimmed.is_empty() || trimmed.chars().count() > 60 {
+            return Err(Error::invalid(
+                "device",
+                "name",
+                name,
+                "must be 1 to 60 characters",
+            ));
+        }
+        if trimmed.chars().any(char::is_control) {
+            return Err(Error::invalid(
+                "device",
+                "name",
+                name,
+                "must not hold line breaks or other control characters",
+            ));
+        }
+        self.conn.execute(
+            "UPDATE local_device SET name = ?1 WHERE singleton = 1",
+            [trimmed],
+        )?;
+        Ok(())
+    }
+
+    /// Copy the whole database to `dest` with SQLite's online backup API: a
+    /// consistent copy even while this store is open. Never copy the file
+    /// itself, and never keep the live database in a cloud or network folder.
+    /// The copy has the same device id: open it as a second device only
+    /// after giving it a new identity (sync refuses a database that shares
+    /// its device id with another one).
+    pub fn backup_to(&self, dest: impl AsRef<Path>) -> Result<()> {
+        let dest = dest.as_ref();
+        if dest.exists() {
+            return Err(Error::State(format!(
+                "{}: already exists; a backup goes to a new file",
+                dest.display()
+            )));
+        }
+        let mut out = Connection::open(dest)?;
+        let backup = rusqlite::backup::Backup::new(&self.conn, &mut out)?;
+        backup.run_to_completion(1024, std::time::Duration::ZERO, None)?;
+        Ok(())
+    }
+
+    /// The store's clock, milliseconds since the Unix epoch.
+    pub fn now_millis(&self) -> i64 {
+        (self.clock)()
+    }
+
+    /// The connection for the sync apply path, which writes in its own
+    /// IMMEDIATE transactions.
+    pub(crate) fn conn_mut(&mut self) -> &mut Connection {
+        &mut self.conn
+    }
+
     /// Make ids deterministic from now on (the demo season uses this so that
     /// its tables are the same on every build).
     pub fn use_seeded_ids(&mut self, seed: u64, start_millis: u64) {
@@ -111,6 +221,11 @@ impl Store {
             rng: Box::new(ChaCha8Rng::seed_from_u64(seed)),
             millis: start_millis,
         };
+    }
+
+    /// Replace the id maker, returning the one in use.
+    pub(crate) fn swap_ids(&mut self, ids: IdMaker) -> IdMaker {
+        std::mem::replace(&mut self.ids, ids)
     }
 
     /// Run `f` in one IMMEDIATE transaction. Every change made through the
@@ -260,6 +375,15 @@ fn ensure_device(conn: &mut Connection, clock: &Clock) -> Result<String> {
 }
 
 impl IdMaker {
+    /// Deterministic ids from a 32-byte seed, with timestamps counting up
+    /// from `start_millis`.
+    pub(crate) fn seeded(seed: [u8; 32], start_millis: u64) -> IdMaker {
+        IdMaker::Seeded {
+            rng: Box::new(ChaCha8Rng::from_seed(seed)),
+            millis: start_millis,
+        }
+    }
+
     fn next(&mut self) -> Uuid {
         match self {
             IdMaker::Clock => Uuid::now_v7(),

@@ -6,8 +6,9 @@ use rusqlite::types::Value;
 use rusqlite::{Transaction, params};
 use uuid::Uuid;
 
+use super::merge::{self, same_value};
 use super::rows::{Record, to_values};
-use super::{Hlc, IdMaker, read_values, table_of};
+use super::{Hlc, IdMaker, Op, read_values, table_of};
 use crate::tables::{self, FieldType, TableSchema, display_value};
 use crate::{Error, Result};
 
@@ -26,24 +27,6 @@ impl std::fmt::Debug for Writer<'_> {
             .field("device_id", &self.device_id)
             .field("next_seq", &self.next_seq)
             .finish_non_exhaustive()
-    }
-}
-
-/// What the change log records for a change.
-#[derive(Clone, Copy)]
-enum Op {
-    Insert,
-    Update,
-    Delete,
-}
-
-impl Op {
-    fn as_str(self) -> &'static str {
-        match self {
-            Op::Insert => "insert",
-            Op::Update => "update",
-            Op::Delete => "delete",
-        }
     }
 }
 
@@ -226,7 +209,12 @@ impl<'a> Writer<'a> {
             })?;
             row[i] = value;
         }
-        self.check_references(schema, &row)?;
+        // Only references this update changes must point at live rows: a
+        // row whose parent was deleted on another device stays editable.
+        let changed_refs: Vec<bool> = (0..row.len())
+            .map(|i| !same_value(&old[i], &row[i]))
+            .collect();
+        self.check_references_where(schema, &row, &changed_refs)?;
         self.check_unique(schema, &row, Some(id))?;
         let mut changed = 0;
         for (i, f) in schema.fields.iter().enumerate().skip(1) {
@@ -248,6 +236,9 @@ impl<'a> Writer<'a> {
                 &row[i],
             )?;
             changed += 1;
+        }
+        if changed > 0 {
+            merge::after_local_change(&self.tx, schema, id)?;
         }
         Ok(changed)
     }
@@ -290,7 +281,159 @@ impl<'a> Writer<'a> {
             None,
             &Value::Null,
             &Value::Null,
-        )
+        )?;
+        merge::after_local_change(&self.tx, schema, id)
+    }
+
+    /// Make a tombstoned row live again (the change log records a
+    /// `restore`). Refused when the row is live, when it is hidden as a
+    /// duplicate of another device's row, when a live row now holds its
+    /// unique key, or when it refers to a deleted row.
+    pub fn restore(&mut self, schema: &TableSchema, id: &str) -> Result<()> {
+        let row = self.any_row(schema, id)?;
+        if !self.is_deleted(schema, id)? {
+            return Err(Error::State(format!(
+                "{} {id} is not deleted; there is nothing to restore",
+                schema.name
+            )));
+        }
+        if merge::is_hidden(&self.tx, &schema.name, id)? {
+            return Err(Error::State(format!(
+                "{} {id} is hidden as a duplicate of a row made on another device; \
+                 settle the duplicate instead of restoring it",
+                schema.name
+            )));
+        }
+        self.check_references(schema, &row)?;
+        self.check_unique(schema, &row, Some(id))?;
+        self.tx
+            .prepare_cached(&format!(
+                "UPDATE {} SET deleted = 0 WHERE id = ?1",
+                schema.name
+            ))?
+            .execute([id])?;
+        self.log(
+            Op::Restore,
+            &schema.name,
+            id,
+            None,
+            &Value::Null,
+            &Value::Null,
+        )?;
+        merge::after_local_change(&self.tx, schema, id)
+    }
+
+    /// Log the field's current value again, unchanged: the entry records
+    /// that someone who had seen every competing value chose this one (a
+    /// conflict kept as it is). Works on deleted rows too.
+    pub(crate) fn reaffirm_field(
+        &mut self,
+        schema: &TableSchema,
+        id: &str,
+        field: &str,
+    ) -> Result<()> {
+        let i = schema
+            .index(field)
+            .filter(|i| *i > 0)
+            .ok_or_else(|| Error::invalid(&schema.name, field, id, "is not a column"))?;
+        let row = self.any_row(schema, id)?;
+        self.log(Op::Update, &schema.name, id, Some(field), &row[i], &row[i])?;
+        merge::after_local_change(&self.tx, schema, id)
+    }
+
+    /// Set one field of a tombstoned row (a conflict on a deleted row settled
+    /// in favour of the other value). The value is checked against the
+    /// field's schema; references and unique keys do not apply to a deleted row.
+    pub(crate) fn set_field_of_deleted(
+        &mut self,
+        schema: &TableSchema,
+        id: &str,
+        field: &str,
+        value: Value,
+    ) -> Result<()> {
+        let i = schema
+            .index(field)
+            .filter(|i| *i > 0)
+            .ok_or_else(|| Error::invalid(&schema.name, field, id, "is not a column"))?;
+        if !self.is_deleted(schema, id)? {
+            return Err(Error::State(format!("{} {id} is not deleted", schema.name)));
+        }
+        let old = self.any_row(schema, id)?.swap_remove(i);
+        let value = normalise(schema.fields[i].kind, value);
+        schema.fields[i]
+            .check(&value)
+            .map_err(|reason| Error::invalid(&schema.name, field, display_value(&value), reason))?;
+        self.tx
+            .prepare_cached(&format!(
+                "UPDATE {} SET {} = ?1 WHERE id = ?2",
+                schema.name, field
+            ))?
+            .execute(params![value, id])?;
+        self.log(Op::Update, &schema.name, id, Some(field), &old, &value)?;
+        merge::after_local_change(&self.tx, schema, id)
+    }
+
+    /// Log the row's current existence again (`delete` for a tombstoned row,
+    /// `restore` for a live one) without changing it: a conflict about the
+    /// row kept as it is.
+    pub(crate) fn reaffirm_existence(&mut self, schema: &TableSchema, id: &str) -> Result<()> {
+        self.any_row(schema, id)?;
+        let op = if self.is_deleted(schema, id)? {
+            Op::Delete
+        } else {
+            Op::Restore
+        };
+        self.log(op, &schema.name, id, None, &Value::Null, &Value::Null)?;
+        merge::after_local_change(&self.tx, schema, id)
+    }
+
+    /// Tombstone a row that is hidden as a duplicate (it is stored with
+    /// `deleted` = 1 already, but its own delete makes the choice final).
+    pub(crate) fn delete_hidden(&mut self, schema: &TableSchema, id: &str) -> Result<()> {
+        if !merge::is_hidden(&self.tx, &schema.name, id)? {
+            return Err(Error::State(format!(
+                "{} {id} is not hidden as a duplicate",
+                schema.name
+            )));
+        }
+        self.log(
+            Op::Delete,
+            &schema.name,
+            id,
+            None,
+            &Value::Null,
+            &Value::Null,
+        )?;
+        merge::forget_hidden(&self.tx, &schema.name, id)?;
+        merge::after_local_change(&self.tx, schema, id)
+    }
+
+    /// Any row with this id, tombstoned or not.
+    fn any_row(&self, schema: &TableSchema, id: &str) -> Result<Vec<Value>> {
+        use rusqlite::OptionalExtension;
+        self.tx
+            .prepare_cached(&format!(
+                "SELECT {} FROM {} WHERE id = ?1",
+                schema.column_list(),
+                schema.name
+            ))?
+            .query_row([id], |r| read_values(r, schema.fields.len()))
+            .optional()?
+            .ok_or_else(|| Error::NotFound {
+                table: schema.name.clone(),
+                id: id.to_owned(),
+            })
+    }
+
+    fn is_deleted(&self, schema: &TableSchema, id: &str) -> Result<bool> {
+        Ok(self
+            .tx
+            .prepare_cached(&format!(
+                "SELECT deleted FROM {} WHERE id = ?1",
+                schema.name
+            ))?
+            .query_row([id], |r| r.get::<_, i64>(0))?
+            == 1)
     }
 
     /// The live row with this id, as values in schema order.
@@ -311,8 +454,21 @@ impl<'a> Writer<'a> {
     }
 
     fn check_references(&self, schema: &TableSchema, row: &[Value]) -> Result<()> {
+        self.check_references_where(schema, row, &vec![true; row.len()])
+    }
+
+    /// Check the references of the columns marked in `which`.
+    fn check_references_where(
+        &self,
+        schema: &TableSchema,
+        row: &[Value],
+        which: &[bool],
+    ) -> Result<()> {
         for fk in &schema.foreign_keys {
             let i = schema.index(&fk.field).unwrap_or_default();
+            if !which[i] {
+                continue;
+            }
             let Value::Text(target) = &row[i] else {
                 continue;
             };
@@ -431,18 +587,6 @@ fn normalise(kind: FieldType, v: Value) -> Value {
         Value::Text(t) if t.is_empty() => Value::Null,
         Value::Integer(i) if kind == FieldType::Number => Value::Real(i as f64),
         other => other,
-    }
-}
-
-/// Equality of stored values, with 1 and 1.0 equal (STRICT REAL columns
-/// return reals; callers may pass integers).
-fn same_value(a: &Value, b: &Value) -> bool {
-    match (a, b) {
-        (Value::Integer(x), Value::Real(y)) | (Value::Real(y), Value::Integer(x)) => {
-            (*x as f64) == *y
-        }
-        (Value::Real(x), Value::Real(y)) => x.to_bits() == y.to_bits(),
-        _ => a == b,
     }
 }
 

@@ -1,0 +1,241 @@
+//! Applying one verified change-set of another device: in ONE IMMEDIATE
+//! transaction, or not at all.
+//!
+//! A change-set is applied only when it is next in its device's sequence and
+//! every change-set its header's `seen` list names is applied already
+//! (causal order). Then every row it refers to exists (a reference can only
+//! name a row its author held), so the local write path's live-reference
+//! check is not repeated: a row may refer to a row that another device has
+//! deleted meanwhile, which is a conflict to show, not a reason to refuse.
+//! Foreign keys are still checked by SQLite, at commit.
+//!
+//! The entries go into the change log under their own device id and seq (so
+//! they are never sent again as this device's), then every row they touch is
+//! recomputed from all its entries ([`crate::store::merge`]).
+
+use std::collections::HashMap;
+
+use rusqlite::{OptionalExtension, TransactionBehavior, params};
+
+use super::SyncOptions;
+use super::changeset::ChangeSet;
+use crate::store::merge::{Entry, Knowledge, Settler};
+use crate::store::{Hlc, Store};
+use crate::tables;
+use crate::{Error, Result};
+
+/// What happened to a change-set offered for applying.
+#[derive(Debug, Clone, PartialEq)]
+pub(crate) enum Outcome {
+    /// Applied; `ahead` is set when its clock was far ahead of ours.
+    Applied { ahead: Option<ClockAhead> },
+    /// Applied before, from the file named.
+    AlreadyApplied { file: String },
+    /// Cannot be applied yet; the reason says what it waits for.
+    Waiting(String),
+}
+
+/// A remote clock far ahead of this device's clock.
+#[derive(Debug, Clone, PartialEq)]
+pub(crate) struct ClockAhead {
+    pub hlc: i64,
+    pub local_millis: i64,
+}
+
+/// The last seq of `device` applied here (0 when none).
+pub(crate) fn applied_upto(conn: &rusqlite::Connection, device: &str) -> Result<i64> {
+    Ok(conn
+        .prepare_cached("SELECT coalesce(max(last_seq), 0) FROM sync_applied WHERE device_id = ?1")?
+        .query_row([device], |r| r.get(0))?)
+}
+
+/// Apply `cs` (read from `file`, `size` bytes) if it is ready.
+pub(crate) fn apply(
+    store: &mut Store,
+    cs: &ChangeSet,
+    file: &str,
+    size: u64,
+    options: &SyncOptions,
+) -> Result<Outcome> {
+    let me = store.device_id().to_owned();
+    let now = store.now_millis();
+    let refuse = |reason: String| Error::ChangeSet {
+        file: file.into(),
+        reason,
+    };
+    if cs.device_id == me {
+        return Err(refuse(
+            "holds this device's own changes; they are never applied again".into(),
+        ));
+    }
+    let tx = store
+        .conn_mut()
+        .transaction_with_behavior(TransactionBehavior::Immediate)?;
+    let upto = applied_upto(&tx, &cs.device_id)?;
+    if cs.first_seq <= upto {
+        let recorded: Option<(i64, String, String)> = tx
+            .prepare_cached(
+                "SELECT last_seq, sha256, file_name FROM sync_applied WHERE device_id = ?1 AND first_seq = ?2",
+            )?
+            .query_row(params![cs.device_id, cs.first_seq], |r| {
+                Ok((r.get(0)?, r.get(1)?, r.get(2)?))
+            })
+            .optional()?;
+        return match recorded {
+            Some((last, sha, name)) if last == cs.last_seq && sha == cs.sha256 => {
+                Ok(Outcome::AlreadyApplied { file: name })
+            }
+            _ => Err(refuse(format!(
+                "device {} seq {}-{} was applied here already from a file with other content. \
+                 Two databases are using that device's identity (a copy or a restored backup); \
+                 this file is refused so that nothing is applied twice or mixed",
+                cs.device_id, cs.first_seq, cs.last_seq
+            ))),
+        };
+    }
+    if cs.first_seq > upto + 1 {
+        return Ok(Outcome::Waiting(format!(
+            "waits for device {}'s changes {}-{}, not applied yet",
+            cs.device_id,
+            upto + 1,
+            cs.first_seq - 1
+        )));
+    }
+    let (next_seq, local_hlc): (i64, i64) = tx.query_row(
+        "SELECT next_seq, hlc FROM local_device WHERE singleton = 1",
+        [],
+        |r| Ok((r.get(0)?, r.get(1)?)),
+    )?;
+    for (device, seq) in &cs.seen {
+        if *device == me {
+            if *seq >= next_seq {
+                return Err(refuse(format!(
+                    "its device had seen this device's changes up to seq {seq}, but this database \
+                     holds only up to {}: this database is an older copy of this device (restored \
+                     from a backup?) and must not be used for sync",
+                    next_seq - 1
+                )));
+            }
+        } else {
+            let have = applied_upto(&tx, device)?;
+            if have < *seq {
+                return Ok(Outcome::Waiting(format!(
+                    "waits for device {device}'s changes {}-{seq}, which its author had applied",
+                    have + 1
+                )));
+            }
+        }
+    }
+    // References are checked when the transaction commits, so that rows can
+    // be settled in any order within it.
+    tx.execute_batch("PRAGMA defer_foreign_keys = ON")?;
+    {
+        let mut insert = tx.prepare_cached(
+            "INSERT INTO change_log (device_id, seq, hlc, table_name, row_id, op, field, old_value, new_value) \
+             VALUES (?1, ?2, ?3, ?4, ?5, ?6, ?7, ?8, ?9)",
+        )?;
+        for c in &cs.changes {
+            insert.execute(params![
+                cs.device_id,
+                c.seq,
+                c.hlc,
+                c.table,
+                c.row_id,
+                c.op.as_str(),
+                c.field,
+                c.old_value,
+                c.new_value
+            ])?;
+        }
+    }
+    for (device, seq) in &cs.seen {
+        tx.prepare_cached(
+            "INSERT OR REPLACE INTO sync_knowledge (device_id, from_seq, other_device, upto_seq) \
+             VALUES (?1, ?2, ?3, ?4)",
+        )?
+        .execute(params![cs.device_id, cs.first_seq, device, seq])?;
+    }
+    let knowledge = Knowledge::load(&tx)?;
+    // Each row once, in the order its first entry arrived.
+    let mut rows: Vec<(&str, &str, Vec<Entry>)> = Vec::new();
+    let mut index: HashMap<(&str, &str), usize> = HashMap::new();
+    for c in &cs.changes {
+        let i = *index
+            .entry((c.table.as_str(), c.row_id.as_str()))
+            .or_insert_with(|| {
+                rows.push((c.table.as_str(), c.row_id.as_str(), Vec::new()));
+                rows.len() - 1
+            });
+        rows[i].2.push(Entry {
+            device: cs.device_id.clone(),
+            seq: c.seq,
+            hlc: c.hlc,
+            op: c.op,
+            field: c.field.clone(),
+            value: c.new_value.clone(),
+        });
+    }
+    let mut settler = Settler::default();
+    for (table, row_id, arrived) in &rows {
+        let schema = tables::get(table)
+            .ok_or_else(|| refuse(format!("table_name: {table:?} is not a table")))?;
+        settler
+            .settle(&tx, schema, row_id, arrived, &knowledge)
+            .map_err(|e| refuse(format!("{table} {row_id}: {e}")))?;
+    }
+    settler
+        .finish(&tx)
+        .map_err(|e| refuse(format!("settling unique keys: {e}")))?;
+    // The clock: never behind anything applied, so that a later local edit
+    // always wins over what its author had seen.
+    let max_remote = cs.changes.iter().map(|c| c.hlc).max().unwrap_or(0);
+    let hlc = Hlc(local_hlc).receive(Hlc(max_remote), now);
+    tx.execute(
+        "UPDATE local_device SET hlc = ?1 WHERE singleton = 1",
+        [hlc.0],
+    )?;
+    let ahead =
+        (Hlc(max_remote).millis() - now > options.clock_ahead_limit_millis).then_some(ClockAhead {
+            hlc: max_remote,
+            local_millis: now,
+        });
+    let noticed = super::timestamp(now);
+    if let Some(a) = &ahead {
+        tx.execute(
+            "INSERT INTO sync_clock_anomaly (noticed_at, device_id, kind, hlc, local_millis, file_name) \
+             VALUES (?1, ?2, 'ahead', ?3, ?4, ?5)",
+            params![noticed, cs.device_id, a.hlc, a.local_millis, file],
+        )?;
+    }
+    tx.execute(
+        "INSERT INTO sync_applied (device_id, first_seq, last_seq, sha256, file_name, size_bytes, applied_at) \
+         VALUES (?1, ?2, ?3, ?4, ?5, ?6, ?7)",
+        params![
+            cs.device_id,
+            cs.first_seq,
+            cs.last_seq,
+            cs.sha256,
+            file,
+            size as i64,
+            noticed
+        ],
+    )?;
+    tx.execute(
+        "INSERT INTO sync_device (device_id, name) VALUES (?1, ?2) \
+         ON CONFLICT (device_id) DO UPDATE SET name = ?2",
+        params![cs.device_id, cs.device_name],
+    )?;
+    // What this device knows from now on: its next entries saw all of it.
+    tx.execute(
+        "DELETE FROM sync_knowledge WHERE device_id = ?1 AND from_seq = ?2",
+        params![me, next_seq],
+    )?;
+    tx.execute(
+        "INSERT INTO sync_knowledge (device_id, from_seq, other_device, upto_seq) \
+         SELECT ?1, ?2, device_id, max(last_seq) FROM sync_applied GROUP BY device_id",
+        params![me, next_seq],
+    )?;
+    tx.commit()
+        .map_err(|e| refuse(format!("could not be committed: {e}")))?;
+    Ok(Outcome::Applied { ahead })
+}
