@@ -1,8 +1,9 @@
 #!/usr/bin/env bash
 # Builds fieldcage and serves the invented demo season: creates
-# demo-run/demo.db afresh, prints the cage layout, exports the tidy tables to
-# demo-run/export/, then serves the tablet UI at http://127.0.0.1:8088/ on
-# day 21 of the demo season (Ctrl-C to stop). Installs what it needs first.
+# demo-run/demo.db afresh, prints the cage layout, runs the day's-end checks,
+# exports the tidy tables to demo-run/export/, then serves the tablet UI at
+# http://127.0.0.1:8088/ on day 21 of the demo season (Ctrl-C to stop).
+# Installs what it needs first.
 set -euo pipefail
 cd "$(dirname "$0")/.."
 
@@ -33,6 +34,9 @@ mkdir -p demo-run
 
 say "layout: blocks, cages and treatments"
 "$bin" layout --db demo-run/demo.db
+
+say "day's-end checks over the whole season (the demo's planted problems; exit 1 = errors open)"
+"$bin" check --db demo-run/demo.db --all || [ $? -eq 1 ]
 
 say "exporting the tidy tables to demo-run/export/"
 "$bin" export --db demo-run/demo.db --out demo-run/export

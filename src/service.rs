@@ -127,6 +127,8 @@ pub const OPERATIONS: &[(&str, Handler)] = &[
     ("delete_record", |s, a| run(s, a, Service::delete_record)),
     ("history", |s, a| run(s, a, Service::history)),
     ("undo", |s, a| run(s, a, Service::undo)),
+    ("review", |s, a| run(s, a, Service::review)),
+    ("confirm_flag", |s, a| run(s, a, Service::confirm_flag)),
 ];
 
 /// Parse the arguments (naming the field at fault), run, serialise.
@@ -241,6 +243,14 @@ impl Service {
         for v in &visits {
             by_cage.entry(v.enclosure_id).or_default().push(v);
         }
+        let open_flags: HashMap<EnclosureId, i64> = store
+            .conn()
+            .prepare(
+                "SELECT enclosure_id, count(*) FROM flag WHERE status = 'open' AND deleted = 0 \
+                 GROUP BY enclosure_id",
+            )?
+            .query_map([], |r| Ok((r.get(0)?, r.get(1)?)))?
+            .collect::<rusqlite::Result<_>>()?;
         let mut blocks: BTreeMap<String, Vec<RouteCage>> = BTreeMap::new();
         for cage in &ctx.cages {
             let visits = by_cage.get(&cage.id).map(Vec::as_slice).unwrap_or_default();
@@ -296,6 +306,7 @@ impl Service {
                     due,
                     overdue,
                     state,
+                    open_flags: open_flags.get(&cage.id).copied().unwrap_or(0),
                 });
         }
         Ok(Route {
@@ -778,6 +789,26 @@ impl Service {
         })
     }
 
+    /// Run the day's-end checks (the field day, or the whole season), store
+    /// the flags and return them with their status.
+    pub fn review(&self, req: ReviewRequest) -> Result<crate::checks::Report> {
+        let mut store = self.store();
+        let ctx = Context::load(&store)?;
+        let date = self.field_date(&ctx, req.date);
+        let scope = if req.season {
+            crate::checks::Scope::Season
+        } else {
+            crate::checks::Scope::Day(date)
+        };
+        crate::checks::run(&mut store, &scope, date)
+    }
+
+    /// Confirm a flag: the data are right as recorded, for the reason given.
+    pub fn confirm_flag(&self, req: ConfirmFlag) -> Result<crate::checks::ReportedFlag> {
+        let mut store = self.store();
+        crate::checks::confirm(&mut store, &req.flag_id, &req.note)
+    }
+
     /// Today's visit of `kind` to a cage, started if there is none. A new
     /// visit fulfils the scheduled day of that kind: today's, or an earlier
     /// one not yet visited and still within its grace days; otherwise it is
@@ -1206,6 +1237,28 @@ pub struct LeafFateRequest {
     pub date: Option<NaiveDate>,
 }
 
+/// Run the checks of the field day, or of the whole season.
+#[derive(Debug, Clone, Default, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct ReviewRequest {
+    /// Local date (today when left out).
+    #[serde(default)]
+    pub date: Option<NaiveDate>,
+    /// Check the whole season instead of one day.
+    #[serde(default)]
+    pub season: bool,
+}
+
+/// Confirm one flag with a note.
+#[derive(Debug, Clone, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct ConfirmFlag {
+    /// The flag's id.
+    pub flag_id: String,
+    /// Why the data are right as recorded.
+    pub note: String,
+}
+
 /// A record by table and id.
 #[derive(Debug, Clone, Deserialize)]
 #[serde(deny_unknown_fields)]
@@ -1285,6 +1338,8 @@ pub struct RouteCage {
     pub overdue: Vec<Planned>,
     /// Where the cage stands today.
     pub state: CageState,
+    /// Open flags of the day's-end checks (as last run).
+    pub open_flags: i64,
 }
 
 /// One block of the route.

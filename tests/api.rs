@@ -506,3 +506,66 @@ fn the_ui_is_small_and_self_contained() {
         );
     }
 }
+
+#[tokio::test]
+async fn review_runs_the_checks_and_confirm_keeps_the_note() {
+    let api = api();
+    let (cage, sheet) = first_cage(&api).await;
+    let slug = taxon(&sheet, "SLUG");
+    // A census of 50 alive where at most the stocked number can be (none were
+    // stocked in this fresh experiment): the counts rules must flag it.
+    api.ok(
+        "save_census",
+        json!({ "enclosure_id": cage, "taxon_id": slug, "alive": 50, "dead": 0, "missing": 0 }),
+    )
+    .await;
+    let report = api.ok("review", json!({})).await;
+    let flags = report["flags"].as_array().unwrap();
+    let counted = flags
+        .iter()
+        .find(|f| f["record_table"] == "census")
+        .expect("a census flag");
+    assert_eq!(counted["status"], "open");
+    assert!(
+        counted["message"].as_str().unwrap().contains("50"),
+        "the message names the number: {counted}"
+    );
+    let route = api.ok("route", json!({})).await;
+    assert!(
+        route["blocks"][0]["cages"][0]["open_flags"]
+            .as_i64()
+            .unwrap()
+            >= 1,
+        "the route marks the cage"
+    );
+
+    let (status, body) = api
+        .call(
+            "confirm_flag",
+            json!({ "flag_id": counted["id"], "note": "  " }),
+        )
+        .await;
+    assert_eq!(
+        (status, body["error"]["field"].as_str()),
+        (StatusCode::UNPROCESSABLE_ENTITY, Some("flag.note"))
+    );
+    let confirmed = api.ok("confirm_flag", json!({ "flag_id": counted["id"], "note": "Counted twice by two people: 50 is right." })).await;
+    assert_eq!(
+        (confirmed["status"].clone(), confirmed["note"].clone()),
+        (
+            json!("confirmed"),
+            json!("Counted twice by two people: 50 is right.")
+        )
+    );
+    let again = api.ok("review", json!({})).await;
+    let same = again["flags"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .find(|f| f["id"] == counted["id"])
+        .unwrap();
+    assert_eq!(
+        same["status"], "confirmed",
+        "a confirmed flag stays confirmed when the checks run again"
+    );
+}

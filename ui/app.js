@@ -5,6 +5,7 @@ import { call, Problem } from './api.js';
 import { h, clear } from './dom.js';
 import { showRoute } from './route.js';
 import { showSheet } from './sheet.js';
+import { showReview } from './review.js';
 
 const main = document.getElementById('main');
 const where = document.getElementById('where');
@@ -145,6 +146,7 @@ export async function render() {
     if (!app.overview) app.overview = await call('overview', { date: app.date || undefined });
     if (view === 'cage' && a) await showSheet(main, a);
     else if (view === 'history' && a && b) await showHistory(a, b);
+    else if (view === 'review') await showReview(main);
     else await showRoute(main, settings());
   } catch (e) {
     clear(main, h('p', { class: 'problem', role: 'alert' }, problemText(e)));

@@ -41,6 +41,7 @@ function cageButton(cage) {
     due ? h('span', { class: 'cage-due' }, due) : null,
     late ? h('span', { class: 'cage-late' }, `Missed: ${late}`) : null,
     h('span', { class: 'cage-state' }, STATE_TEXT[cage.state]),
+    cage.open_flags ? h('span', { class: 'cage-flags' }, `⚑ ${cage.open_flags} open flag${cage.open_flags === 1 ? '' : 's'}`) : null,
   );
 }
 
@@ -67,7 +68,7 @@ export async function showRoute(main, settings) {
   const o = app.overview;
   setWhere(o.site, `Day ${route.day} (${route.date})`);
   const blocks = route.blocks
-    .map((b) => ({ ...b, cages: b.cages.filter((c) => showAll || c.state !== 'nothing_due') }))
+    .map((b) => ({ ...b, cages: b.cages.filter((c) => showAll || c.state !== 'nothing_due' || c.open_flags > 0) }))
     .filter((b) => b.cages.length > 0);
   const total = route.blocks.flatMap((b) => b.cages).filter((c) => c.state !== 'nothing_due');
   const done = total.filter((c) => c.state === 'done').length;
@@ -86,6 +87,7 @@ export async function showRoute(main, settings) {
       ),
       h('p', { class: 'progress' }, total.length ? `${done} of ${total.length} cages done today` : 'No visits due on this day.'),
       settings,
+      h('a', { class: 'button', href: '#/review' }, "Day's-end checks"),
       h(
         'label',
         { class: 'toggle' },

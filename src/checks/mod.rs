@@ -159,6 +159,12 @@ impl Flag {
             self.related.map(|r| r.id),
         )
     }
+
+    /// The same flag with a related record.
+    pub fn related_to(mut self, related: impl Into<Target>) -> Flag {
+        self.related = Some(related.into());
+        self
+    }
 }
 
 impl Rule {
@@ -183,14 +189,6 @@ impl Rule {
             message,
             fix,
         }
-    }
-}
-
-impl Flag {
-    /// The same flag with a related record.
-    pub fn related_to(mut self, related: impl Into<Target>) -> Flag {
-        self.related = Some(related.into());
-        self
     }
 }
 
