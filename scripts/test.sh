@@ -66,7 +66,7 @@ fi
 # playwright-core never downloads a browser; it drives /usr/bin/chromium.
 (cd tests/e2e && npm ci --no-audit --no-fund --loglevel=error)
 rm -rf test-artifacts/e2e
-FIELDCAGE_BIN="$PWD/target/debug/fieldcage" node --test --test-concurrency=1 tests/e2e/
+FIELDCAGE_BIN="$PWD/target/debug/fieldcage" timeout 1200 node --test --test-force-exit --test-concurrency=1 tests/e2e/
 echo "screenshots: test-artifacts/e2e/"
 
 say "tablet app (src-tauri): system packages for Tauri 2 on Linux"
@@ -88,8 +88,9 @@ say "tablet app: WebDriver end-to-end test under Xvfb (tauri-driver from crates.
 if [ ! -x .tools/bin/tauri-driver ]; then
   cargo install --locked tauri-driver --version 2.1.0 --root .tools
 fi
+# --test-force-exit and the timeout: a WebDriver process left behind must not hang CI.
 TAURI_DRIVER="$PWD/.tools/bin/tauri-driver" FIELDCAGE_TABLET="$PWD/target/debug/fieldcage-tablet" \
-  xvfb-run -a node --test tests/e2e/tablet.webdriver.mjs
+  timeout 900 xvfb-run -a node --test --test-force-exit tests/e2e/tablet.webdriver.mjs
 
 say "documentation builds without warnings (cargo doc)"
 RUSTDOCFLAGS="-D warnings" cargo doc --no-deps --locked --quiet

@@ -25,7 +25,8 @@ const driver = spawn(DRIVER, ['--port', String(PORT)], {
   stdio: ['ignore', 'inherit', 'inherit'],
   env: { ...process.env, XDG_DATA_HOME: join(home, 'data'), XDG_CONFIG_HOME: join(home, 'config'), XDG_CACHE_HOME: join(home, 'cache') },
 });
-after(() => driver.kill());
+// tauri-driver starts WebKitWebDriver; end both, whatever state they are in.
+after(() => driver.kill('SIGKILL'));
 
 async function wd(method, path, body) {
   const r = await fetch(`http://127.0.0.1:${PORT}${path}`, {
