@@ -14,14 +14,14 @@
 //! 3. writes the entries made since the last change-set (atomically: temp
 //!    name, flush, rename, folder flush);
 //! 4. reads every other device's files, verifies each whole file, and
-//!    applies each one that is ready in one transaction ([`apply`]): in
+//!    applies each one that is ready in one transaction (`apply`): in
 //!    sequence order per device, after the change-sets its author had seen.
 //!    A bad file is skipped with a message naming it and read again on the
 //!    next run; a duplicate is recognised by device, sequence range and hash.
 //!
 //! Merging follows per-field last-writer-wins by hybrid logical clock (Kulkarni
 //! et al. 2014, "Logical Physical Clocks"), with conflicts kept for review;
-//! the rules are in [`crate::store::merge`] and conflicts are listed and
+//! the rules are in `store::merge` and conflicts are listed and
 //! settled with [`conflicts`] and [`resolve_conflict`].
 //!
 //! Never keep the live database in the target or any cloud-synced folder;
