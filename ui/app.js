@@ -6,6 +6,7 @@ import { h, clear } from './dom.js';
 import { showRoute } from './route.js';
 import { showSheet } from './sheet.js';
 import { showReview } from './review.js';
+import { showResults } from './results.js';
 
 const main = document.getElementById('main');
 const where = document.getElementById('where');
@@ -147,6 +148,7 @@ export async function render() {
     if (view === 'cage' && a) await showSheet(main, a);
     else if (view === 'history' && a && b) await showHistory(a, b);
     else if (view === 'review') await showReview(main);
+    else if (view === 'results') await showResults(main);
     else await showRoute(main, settings());
   } catch (e) {
     clear(main, h('p', { class: 'problem', role: 'alert' }, problemText(e)));
