@@ -8,6 +8,7 @@ mod util;
 
 mod analysis;
 mod api;
+mod bench;
 mod changelog;
 mod checks;
 mod cli;
