@@ -89,7 +89,6 @@ pub fn export(store: &Store, out: &Path) -> Result<ExportSummary> {
     Ok(summary)
 }
 
-/// One table as CSV bytes: the header, then one line per row.
 /// Write the tidy CSV of every stored table into `out` (the data-table part
 /// of [`export`]); returns each table's name and row count. Callers that
 /// need one consistent snapshot hold a read transaction around it.
@@ -105,6 +104,7 @@ pub fn write_data_tables(store: &Store, out: &Path) -> Result<Vec<(String, usize
     Ok(written)
 }
 
+/// One table as CSV bytes: the header, then one line per row.
 fn table_csv(schema: &TableSchema, rows: &[Vec<rusqlite::types::Value>]) -> Result<Vec<u8>> {
     let mut csv = csv::WriterBuilder::new()
         .quote_style(csv::QuoteStyle::Necessary)
