@@ -67,13 +67,10 @@ pub fn export(store: &Store, out: &Path) -> Result<ExportSummary> {
     // another connection writes meanwhile. It only reads, so dropping it
     // (a rollback) is all the cleanup it needs.
     let snapshot = store.conn().unchecked_transaction()?;
-    let mut summary = ExportSummary::default();
-    for schema in tables::all() {
-        let rows = store.rows(schema)?;
-        let bytes = table_csv(schema, &rows)?;
-        write_file(out, &file_name(schema), &bytes)?;
-        summary.tables.push((schema.name.clone(), rows.len()));
-    }
+    let mut summary = ExportSummary {
+        tables: write_data_tables(store, out)?,
+        ..ExportSummary::default()
+    };
     let results = analysis::analyse(store, &Options::default())?;
     for (schema, rows) in analysis::tables::all(&results)? {
         let bytes = table_csv(schema, &rows)?;
@@ -90,6 +87,21 @@ pub fn export(store: &Store, out: &Path) -> Result<ExportSummary> {
     write_file(out, DESCRIPTOR, text.as_bytes())?;
     sync_dir(out)?;
     Ok(summary)
+}
+
+/// Write the tidy CSV of every stored table into `out` (the data-table part
+/// of [`export`]); returns each table's name and row count. Callers that
+/// need one consistent snapshot hold a read transaction around it.
+pub fn write_data_tables(store: &Store, out: &Path) -> Result<Vec<(String, usize)>> {
+    fs::create_dir_all(out).map_err(|e| Error::io(out, e))?;
+    let mut written = Vec::new();
+    for schema in tables::all() {
+        let rows = store.rows(schema)?;
+        let bytes = table_csv(schema, &rows)?;
+        write_file(out, &file_name(schema), &bytes)?;
+        written.push((schema.name.clone(), rows.len()));
+    }
+    Ok(written)
 }
 
 /// One table as CSV bytes: the header, then one line per row.

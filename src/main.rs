@@ -175,6 +175,33 @@ enum Command {
         /// Plant species per cover visit.
         #[arg(long, default_value_t = 40)]
         species: usize,
+        /// Largest database of the scaling table, in seasons (of 1, 2, 5
+        /// and 10); 0 leaves the scaling table out (a quick run).
+        #[arg(long, default_value_t = 10)]
+        max_seasons: usize,
+        /// Saves timed through the HTTP API (and raw commits).
+        #[arg(long, default_value_t = 1000)]
+        saves: usize,
+        /// Where the scratch databases go (default: a new temporary folder);
+        /// the disk to measure. 10 seasons take several GB.
+        #[arg(long)]
+        dir: Option<PathBuf>,
+    },
+    /// Benchmark hook: run one stage of `fieldcage bench` on a database and
+    /// print its seconds and this process's peak memory.
+    #[command(hide = true, name = "bench-stage")]
+    BenchStage {
+        /// checks, analysis, export or raw-dump.
+        stage: String,
+        /// The database file.
+        #[arg(long)]
+        db: PathBuf,
+        /// Where the stage writes.
+        #[arg(long)]
+        out: PathBuf,
+        /// The day the checks run as of.
+        #[arg(long)]
+        today: chrono::NaiveDate,
     },
 }
 
@@ -407,15 +434,46 @@ fn run(cli: Cli) -> anyhow::Result<ExitCode> {
             cages,
             visits,
             species,
+            max_seasons,
+            saves,
+            dir,
         } => {
             let size = fieldcage::synth::SeasonSize {
                 cages,
                 visits,
                 species,
             };
-            let dir = tempfile::tempdir().context("making a scratch folder")?;
-            let timings = fieldcage::bench::run(size, dir.path())?;
-            print!("{}", fieldcage::bench::format_table(size, &timings));
+            let mut options = fieldcage::bench::Options::full(size);
+            options.scales.retain(|n| *n <= max_seasons);
+            options.saves = saves;
+            options.stage_exe =
+                Some(std::env::current_exe().context("finding this program to run stages")?);
+            let scratch = match dir {
+                Some(d) => {
+                    std::fs::create_dir_all(&d)
+                        .with_context(|| format!("making {}", d.display()))?;
+                    tempfile::tempdir_in(&d)
+                }
+                None => tempfile::tempdir(),
+            }
+            .context("making a scratch folder")?;
+            let report = fieldcage::bench::run(&options, scratch.path())?;
+            print!("{}", fieldcage::bench::format_report(&report));
+        }
+        Command::BenchStage {
+            stage,
+            db,
+            out,
+            today,
+        } => {
+            let stage = fieldcage::bench::Stage::parse(&stage).with_context(|| {
+                format!("bench-stage: no stage {stage:?} (checks, analysis, export, raw-dump)")
+            })?;
+            let seconds = fieldcage::bench::run_stage(stage, &db, &out, today)?;
+            println!(
+                "{}",
+                fieldcage::bench::stage_line(seconds, fieldcage::bench::peak_memory())
+            );
         }
         Command::Check {
             db,

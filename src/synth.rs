@@ -177,8 +177,10 @@ pub fn build_share(
         NaiveDate::from_ymd_opt(2026, 4, 1).ok_or_else(|| Error::State("bad start date".into()))?;
     let utc = FixedOffset::east_opt(0).ok_or_else(|| Error::State("bad offset".into()))?;
     let mut rng = ChaCha8Rng::seed_from_u64(seed.wrapping_add(share as u64));
-    store.write(|w| {
-        for (i, e) in enclosures.iter().enumerate() {
+    // One transaction per cage, as a crew saves cage by cage (so the WAL of
+    // a large season stays small).
+    for (i, e) in enclosures.iter().enumerate() {
+        store.write(|w| {
             let at = |day: usize, minute: usize| {
                 let local = (start + Duration::days(day as i64))
                     .and_hms_opt(8, 0, 0)
@@ -268,7 +270,8 @@ pub fn build_share(
                     record::damage(w, v.id, *leaf, DamageEntry::Class(class.into()))?;
                 }
             }
-        }
-        Ok(())
-    })
+            Ok(())
+        })?;
+    }
+    Ok(())
 }

@@ -8,10 +8,12 @@ mod util;
 
 mod analysis;
 mod api;
+mod bench;
 mod changelog;
 mod checks;
 mod cli;
 mod demo;
+mod powerloss;
 mod randomise;
 mod record;
 mod schema;

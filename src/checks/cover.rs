@@ -12,7 +12,7 @@
 
 use std::collections::HashMap;
 
-use super::{EPSILON, Flag, Rule, Season, num};
+use super::{CoverRow, EPSILON, Flag, Rule, Season, num};
 use crate::model::*;
 
 /// A cover row whose entry does not fit the protocol's method.
@@ -140,12 +140,12 @@ pub fn check(season: &Season, out: &mut Vec<Flag>) {
 }
 
 /// Whether a cover survey holds no value at all (no rows, or only blank ones).
-pub fn is_blank(rows: &[CoverRecord]) -> bool {
+pub fn is_blank(rows: &[CoverRow]) -> bool {
     rows.iter().all(|r| r.cover_pct.is_none() && !has_entry(r))
 }
 
 /// Whether a row holds any entry (percent, class or hits).
-fn has_entry(row: &CoverRecord) -> bool {
+fn has_entry(row: &CoverRow) -> bool {
     row.value_pct.is_some() || row.class_code.is_some() || row.pin_hits.is_some()
 }
 
@@ -156,14 +156,14 @@ struct Survey<'a> {
     cage: &'a super::Cage,
     visit: &'a Visit,
     day: i64,
-    rows: &'a [CoverRecord],
+    rows: &'a [CoverRow],
 }
 
 impl Survey<'_> {
     /// What a row is about, for messages: a taxon code, a ground category or
     /// overall vegetation.
-    fn name(&self, row: &CoverRecord) -> String {
-        match (&row.taxon_id, &row.category) {
+    fn name(&self, row: &CoverRow) -> String {
+        match (&row.taxon_id, row.category.as_deref()) {
             (Some(t), _) => self.season.taxon_code(*t),
             (None, Some(c)) if c == VEGETATION_CATEGORY => "overall vegetation".to_owned(),
             (None, Some(c)) => format!("ground \"{c}\""),
@@ -171,12 +171,12 @@ impl Survey<'_> {
         }
     }
 
-    fn flag(&self, rule: &Rule, row: &CoverRecord, message: String, fix: &str) -> Flag {
+    fn flag(&self, rule: &Rule, row: &CoverRow, message: String, fix: &str) -> Flag {
         rule.flag(self.cage, self.day, row.id, message, fix.to_owned())
     }
 
     /// The row's entry against the protocol's method and scale.
-    fn check_entry(&self, row: &CoverRecord, out: &mut Vec<Flag>) {
+    fn check_entry(&self, row: &CoverRow, out: &mut Vec<Flag>) {
         let p = self.protocol;
         // The row's name is made only for a flag: most rows raise none.
         let name = || self.name(row);
@@ -220,7 +220,7 @@ impl Survey<'_> {
         let derived: Option<f64> = match p.method {
             CoverMethod::Percent => row.value_pct,
             CoverMethod::Class => {
-                let Some(code) = &row.class_code else {
+                let Some(code) = row.class_code.as_deref() else {
                     return self.no_entry(row, out);
                 };
                 let Some(class) = self.season.cover_classes.get(code) else {
@@ -310,7 +310,7 @@ impl Survey<'_> {
     }
 
     /// A row without an entry must not hold a percent either.
-    fn no_entry(&self, row: &CoverRecord, out: &mut Vec<Flag>) {
+    fn no_entry(&self, row: &CoverRow, out: &mut Vec<Flag>) {
         if let Some(c) = row.cover_pct {
             out.push(self.flag(
                 &METHOD,
@@ -326,7 +326,7 @@ impl Survey<'_> {
         }
     }
 
-    fn check_taxon(&self, row: &CoverRecord, out: &mut Vec<Flag>) {
+    fn check_taxon(&self, row: &CoverRow, out: &mut Vec<Flag>) {
         let Some(taxon) = row.taxon_id.and_then(|t| self.season.taxa.get(&t)) else {
             return;
         };
@@ -344,7 +344,7 @@ impl Survey<'_> {
     }
 
     /// Assessed species rows and ground rows (overall vegetation apart).
-    fn parts(&self) -> (Vec<&CoverRecord>, Vec<&CoverRecord>, Option<&CoverRecord>) {
+    fn parts(&self) -> (Vec<&CoverRow>, Vec<&CoverRow>, Option<&CoverRow>) {
         let species = self.rows.iter().filter(|r| r.taxon_id.is_some()).collect();
         let ground = self
             .rows
@@ -365,7 +365,7 @@ impl Survey<'_> {
     fn check_totals(&self, out: &mut Vec<Flag>) {
         let p = self.protocol;
         let (species, ground, vegetation) = self.parts();
-        let pct = |rows: &[&CoverRecord]| rows.iter().filter_map(|r| r.cover_pct).sum::<f64>();
+        let pct = |rows: &[&CoverRow]| rows.iter().filter_map(|r| r.cover_pct).sum::<f64>();
         let tol = p.tolerance_pct;
         let day = self.day;
         let fix_typo = format!(
@@ -374,8 +374,7 @@ impl Survey<'_> {
         match (p.method, p.hit_rule, p.layered) {
             (CoverMethod::Pins, Some(HitRule::First), _) => {
                 let Some(pins) = p.pins_per_frame else { return };
-                let hits =
-                    |rows: &[&CoverRecord]| rows.iter().filter_map(|r| r.pin_hits).sum::<i64>();
+                let hits = |rows: &[&CoverRow]| rows.iter().filter_map(|r| r.pin_hits).sum::<i64>();
                 let (s, g) = (hits(&species), hits(&ground));
                 if s + g != pins {
                     out.push(TOTAL.flag(
@@ -425,11 +424,11 @@ impl Survey<'_> {
             CoverMethod::Percent => false,
         };
         if !p.layered && no_exact_total {
-            let least = |r: &&CoverRecord| -> Option<f64> {
+            let least = |r: &&CoverRow| -> Option<f64> {
                 match p.method {
                     CoverMethod::Class => r
                         .class_code
-                        .as_ref()
+                        .as_deref()
                         .and_then(|c| self.season.cover_classes.get(c))
                         .map(|c| c.lower_pct.unwrap_or(c.midpoint_pct)),
                     _ => r.cover_pct,
@@ -468,7 +467,7 @@ impl Survey<'_> {
         let (species, _, vegetation) = self.parts();
         let Some(veg_row) = vegetation else { return };
         let Some(veg) = veg_row.cover_pct else { return };
-        let covers: Vec<(f64, &CoverRecord)> = species
+        let covers: Vec<(f64, &CoverRow)> = species
             .iter()
             .filter_map(|r| r.cover_pct.map(|c| (c, *r)))
             .collect();

@@ -35,7 +35,7 @@ use chrono::NaiveDate;
 use serde::Serialize;
 use uuid::Uuid;
 
-pub use season::{Cage, Season};
+pub use season::{Cage, CoverRow, Season};
 pub use stored::{Changes, MIN_ID_SUFFIX, Report, ReportedFlag, confirm, format_report, run};
 
 use crate::Result;
