@@ -10,6 +10,7 @@ pub mod analysis;
 pub mod bench;
 pub mod checks;
 pub mod demo;
+pub mod disk;
 pub mod error;
 pub mod export;
 pub mod import;

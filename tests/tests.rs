@@ -12,6 +12,7 @@ mod changelog;
 mod checks;
 mod cli;
 mod demo;
+mod faults;
 mod randomise;
 mod record;
 mod schema;
