@@ -9,6 +9,7 @@
 pub mod analysis;
 pub mod bench;
 pub mod checks;
+pub mod crash_writer;
 pub mod demo;
 pub mod disk;
 pub mod error;

@@ -11,6 +11,7 @@ mod api;
 mod changelog;
 mod checks;
 mod cli;
+mod crash;
 mod demo;
 mod faults;
 mod randomise;
