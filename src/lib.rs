@@ -14,6 +14,7 @@ pub mod demo;
 pub mod disk;
 pub mod error;
 pub mod export;
+pub mod fuzz_checks;
 pub mod import;
 pub mod model;
 pub mod record;

@@ -14,6 +14,7 @@ mod cli;
 mod crash;
 mod demo;
 mod faults;
+mod fuzz_corpus;
 mod randomise;
 mod record;
 mod schema;
