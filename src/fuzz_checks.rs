@@ -67,7 +67,14 @@ static RIG: Mutex<Option<ImportRig>> = Mutex::new(None);
 pub fn import_file_set(bytes: &[u8]) {
     let mut guard = RIG.lock().unwrap_or_else(|p| p.into_inner());
     let rig = guard.get_or_insert_with(|| {
-        let dir = tempfile::tempdir().expect("a temporary folder");
+        // A RAM disk where there is one: every run writes files and commits.
+        let shm = Path::new("/dev/shm");
+        let dir = if shm.is_dir() {
+            tempfile::tempdir_in(shm)
+        } else {
+            tempfile::tempdir()
+        }
+        .expect("a temporary folder");
         let files = dir.path().join("tables");
         ImportRig {
             db: dir.path().join("fuzz.db"),
