@@ -261,3 +261,53 @@ fn stored(store: &Store, key: &SaveKey) -> Option<Known> {
     assert!(rows.len() <= 1, "{key:?} has {} rows", rows.len());
     rows.into_iter().next()
 }
+
+/// The writer stops by itself after `--max-saves`; its side file holds a try
+/// and then an ack for each save, in order, each ack naming the row that was
+/// saved, and each row holds the value last saved to it.
+#[test]
+fn the_writer_logs_a_try_and_an_ack_for_each_save() {
+    let tmp = Temp::new();
+    let db = store_with(&tmp, &[], 4).path().to_path_buf();
+    let log = tmp.path("saves.log");
+    let out = Command::new(env!("CARGO_BIN_EXE_fieldcage"))
+        .arg("crash-writer")
+        .arg("--db")
+        .arg(&db)
+        .arg("--log")
+        .arg(&log)
+        .args(["--seed", "9", "--max-saves", "6"])
+        .output()
+        .unwrap();
+    assert!(
+        out.status.success(),
+        "{}",
+        String::from_utf8_lossy(&out.stderr)
+    );
+    let lines = crash_writer::read_log(&log).unwrap();
+    assert_eq!(lines.len(), 12);
+    let store = Store::open(&db).unwrap();
+    let mut last: BTreeMap<SaveKey, Known> = BTreeMap::new();
+    for (i, pair) in lines.chunks(2).enumerate() {
+        let [
+            LogLine::Try { n, key, value },
+            LogLine::Ack { n: acked, id },
+        ] = pair
+        else {
+            panic!("save {}: not a try and an ack: {pair:?}", i + 1);
+        };
+        assert_eq!((*n, *acked), (i as u64 + 1, i as u64 + 1));
+        let row = stored(&store, key).expect("the saved row");
+        assert_eq!(&row.id, id);
+        last.insert(
+            key.clone(),
+            Known {
+                id: id.clone(),
+                value: *value,
+            },
+        );
+    }
+    for (key, expected) in &last {
+        assert_eq!(stored(&store, key).as_ref(), Some(expected));
+    }
+}
