@@ -37,6 +37,21 @@ cargo test --locked --all-targets -- --skip powerloss
 say "power loss: saves through a SQLite VFS that keeps only fsynced writes (tests/powerloss.rs)"
 timeout 600 cargo test --locked --test integration powerloss
 
+say "fuzzing: a short run of each target (cargo-fuzz from crates.io into .tools/; libFuzzer)"
+if [ ! -x .tools/bin/cargo-fuzz ]; then
+  cargo install --locked cargo-fuzz --version 0.13.2 --root .tools
+fi
+# The pinned stable toolchain: no sanitizer, and RUSTC_BOOTSTRAP=1 for the
+# unstable flags cargo-fuzz passes to rustc. Each target starts from the
+# committed seeds and stops after FUZZ_SECONDS; a crash fails the run and
+# leaves the input in fuzz/artifacts/<target>/. The timeout bounds the build.
+FUZZ_SECONDS="${FUZZ_SECONDS:-30}"
+for target in import_tables changeset_reader; do
+  mkdir -p "fuzz/corpus/$target"
+  (cd fuzz && RUSTC_BOOTSTRAP=1 timeout 1500 ../.tools/bin/cargo-fuzz run --sanitizer none "$target" \
+    "corpus/$target" "seeds/$target" -- -max_total_time="$FUZZ_SECONDS" -timeout=10 -rss_limit_mb=2048 -print_final_stats=1)
+done
+
 say "independent checks in Python: setting up .venv (pip install -r tests/python/requirements.txt)"
 if ! python3 -c 'import venv, ensurepip' >/dev/null 2>&1; then
   if [ "$(id -u)" = 0 ] && command -v apt-get >/dev/null 2>&1; then

@@ -16,19 +16,22 @@
 //!   schemas are the ones in `schemas/tables/`. It holds no timestamp, so the
 //!   same data always gives byte-identical files.
 //! - Each file is written to a temporary name in the folder, flushed to disk
-//!   and renamed, so a reader never sees half a file.
+//!   and renamed ([`crate::disk::write_atomically`]), so a reader never sees
+//!   half a file. A failed export names the file it could not write; the
+//!   files written before stay whole (each of them is complete, but the
+//!   folder then mixes this export with an earlier one: export again).
 //! - Next to the data tables come the analysis tables ([`tables::analysis`],
 //!   computed by [`crate::analysis`] from the same snapshot; described in
 //!   `datapackage.json` too) and `report.md`. They are derived, so import
 //!   reads only the data tables and the analysis is computed again.
 
-use std::fs::{self, File};
-use std::io::Write;
+use std::fs;
 use std::path::Path;
 
 use serde_json::{Map, Value as Json, json};
 
 use crate::analysis::{self, Options};
+use crate::disk::{self, Disk, Existing, OsDisk};
 use crate::model::Experiment;
 use crate::store::Store;
 use crate::tables::{self, TableSchema};
@@ -62,30 +65,35 @@ pub fn file_name(schema: &TableSchema) -> String {
 /// Write every table and `datapackage.json` into `out` (made if missing).
 /// Files of an earlier export in the same folder are replaced.
 pub fn export(store: &Store, out: &Path) -> Result<ExportSummary> {
+    export_with(store, out, &OsDisk)
+}
+
+/// [`export`] through the given [`Disk`] (tests pass one that fails a step).
+pub fn export_with(store: &Store, out: &Path, disk: &dyn Disk) -> Result<ExportSummary> {
     fs::create_dir_all(out).map_err(|e| Error::io(out, e))?;
     // One read transaction: every table comes from the same snapshot, even if
     // another connection writes meanwhile. It only reads, so dropping it
     // (a rollback) is all the cleanup it needs.
     let snapshot = store.conn().unchecked_transaction()?;
     let mut summary = ExportSummary {
-        tables: write_data_tables(store, out)?,
+        tables: data_tables(store, out, disk)?,
         ..ExportSummary::default()
     };
     let results = analysis::analyse(store, &Options::default())?;
     for (schema, rows) in analysis::tables::all(&results)? {
         let bytes = table_csv(schema, &rows)?;
-        write_file(out, &file_name(schema), &bytes)?;
+        write_file(disk, out, &file_name(schema), &bytes)?;
         summary.analysis.push((schema.name.clone(), rows.len()));
     }
     let report = analysis::report::render(&results);
-    write_file(out, analysis::report::FILE, report.as_bytes())?;
+    write_file(disk, out, analysis::report::FILE, report.as_bytes())?;
     let descriptor = data_package(store)?;
     drop(snapshot);
     let mut text = serde_json::to_string_pretty(&descriptor)
         .map_err(|e| Error::State(format!("{DESCRIPTOR}: cannot serialise: {e}")))?;
     text.push('\n');
-    write_file(out, DESCRIPTOR, text.as_bytes())?;
-    sync_dir(out)?;
+    write_file(disk, out, DESCRIPTOR, text.as_bytes())?;
+    disk::sync_dir(disk, out)?;
     Ok(summary)
 }
 
@@ -94,11 +102,16 @@ pub fn export(store: &Store, out: &Path) -> Result<ExportSummary> {
 /// need one consistent snapshot hold a read transaction around it.
 pub fn write_data_tables(store: &Store, out: &Path) -> Result<Vec<(String, usize)>> {
     fs::create_dir_all(out).map_err(|e| Error::io(out, e))?;
+    data_tables(store, out, &OsDisk)
+}
+
+/// The data tables through the given [`Disk`].
+fn data_tables(store: &Store, out: &Path, disk: &dyn Disk) -> Result<Vec<(String, usize)>> {
     let mut written = Vec::new();
     for schema in tables::all() {
         let rows = store.rows(schema)?;
         let bytes = table_csv(schema, &rows)?;
-        write_file(out, &file_name(schema), &bytes)?;
+        write_file(disk, out, &file_name(schema), &bytes)?;
         written.push((schema.name.clone(), rows.len()));
     }
     Ok(written)
@@ -190,32 +203,7 @@ fn resource(schema: &TableSchema) -> Json {
     })
 }
 
-/// Write `bytes` to `dir/name` through a temporary file: written, flushed to
-/// disk, then renamed over the target.
-fn write_file(dir: &Path, name: &str, bytes: &[u8]) -> Result<()> {
-    let target = dir.join(name);
-    let partial = dir.join(format!(".{name}.partial"));
-    let written = File::create(&partial)
-        .and_then(|mut f| {
-            f.write_all(bytes)?;
-            f.sync_all()
-        })
-        .and_then(|()| fs::rename(&partial, &target));
-    written.map_err(|e| {
-        // Best effort: the partial file is useless; the error that matters is `e`.
-        let _ = fs::remove_file(&partial);
-        Error::io(&target, e)
-    })
-}
-
-/// Make the renames durable (a directory's entries are flushed separately on
-/// Unix; elsewhere the rename is all there is).
-fn sync_dir(dir: &Path) -> Result<()> {
-    #[cfg(unix)]
-    File::open(dir)
-        .and_then(|d| d.sync_all())
-        .map_err(|e| Error::io(dir, e))?;
-    #[cfg(not(unix))]
-    let _ = dir;
-    Ok(())
+/// Write one file of the export whole, replacing an earlier export's.
+fn write_file(disk: &dyn Disk, dir: &Path, name: &str, bytes: &[u8]) -> Result<()> {
+    disk::write_atomically(disk, dir, name, bytes, Existing::Replace).map(drop)
 }

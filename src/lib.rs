@@ -9,9 +9,12 @@
 pub mod analysis;
 pub mod bench;
 pub mod checks;
+pub mod crash_writer;
 pub mod demo;
+pub mod disk;
 pub mod error;
 pub mod export;
+pub mod fuzz_checks;
 pub mod import;
 pub mod model;
 pub mod record;

@@ -124,6 +124,23 @@ enum Command {
     /// the analysis functions (see fieldcage::analysis::probe).
     #[command(hide = true, name = "analysis-probe")]
     AnalysisProbe,
+    /// Crash-test hook: saves through the operation set until killed, logging
+    /// each save before and after it commits (see fieldcage::crash_writer).
+    #[command(hide = true, name = "crash-writer")]
+    CrashWriter {
+        /// The database file (set up already).
+        #[arg(long)]
+        db: PathBuf,
+        /// The side file the saves are logged to (appended).
+        #[arg(long)]
+        log: PathBuf,
+        /// Seed of the saves' cages, days, taxa and values.
+        #[arg(long)]
+        seed: u64,
+        /// Stop after this many saves (default: run until killed).
+        #[arg(long)]
+        max_saves: Option<u64>,
+    },
     /// Write this device's new changes into a shared folder and apply every
     /// other device's changes found there.
     Sync {
@@ -377,6 +394,12 @@ fn run(cli: Cli) -> anyhow::Result<ExitCode> {
                 .context("reading the request on standard input")?;
             println!("{}", analysis::probe::run(&input)?);
         }
+        Command::CrashWriter {
+            db,
+            log,
+            seed,
+            max_saves,
+        } => fieldcage::crash_writer::run(&db, &log, seed, max_saves)?,
         Command::Sync { db, target } => {
             let mut store = existing_database(&db)?;
             let report = sync::sync_once(&mut store, &target)?;

@@ -5,15 +5,16 @@
 //! the header, then every row against its table's schema.
 
 use std::collections::BTreeMap;
-use std::fs::{self, File};
-use std::io::{Read, Write};
-use std::path::{Path, PathBuf};
+use std::fs::File;
+use std::io::Read;
+use std::path::Path;
 use std::sync::OnceLock;
 
 use rusqlite::types::Value;
 use sha2::{Digest, Sha256};
 use uuid::Uuid;
 
+use crate::disk::{self, Disk, Existing};
 use crate::store::{Op, typed_text};
 use crate::tables::{self, display_value};
 use crate::{Error, Result};
@@ -437,44 +438,27 @@ fn parse_row(record: &csv::StringRecord, expected_seq: i64) -> Result<Change, St
     })
 }
 
-/// Write a file atomically: a temporary name starting with '.', flushed,
-/// renamed over nothing, then the folder flushed. Returns a warning when the
+/// Write a change-set file atomically through `disk`
+/// ([`disk::write_atomically`]: a temporary name starting with '.', flushed,
+/// renamed over nothing), then flush the folder. Returns a warning when the
 /// folder could not be flushed (network file systems may refuse it; the
 /// file itself is flushed). `replace` allows overwriting a damaged copy.
 pub fn write_atomically(
+    disk: &dyn Disk,
     dir: &Path,
     name: &str,
     bytes: &[u8],
     replace: bool,
 ) -> Result<Option<String>> {
-    let path = dir.join(name);
-    if !replace && path.exists() {
-        return Err(Error::State(format!(
-            "{}: already exists; a change-set is never overwritten",
-            path.display()
-        )));
-    }
-    let temp: PathBuf = dir.join(format!(
-        ".{name}.{}-{}.tmp",
-        std::process::id(),
-        Uuid::now_v7().simple()
-    ));
-    let result = (|| {
-        let mut f = File::create(&temp).map_err(|e| Error::io(&temp, e))?;
-        f.write_all(bytes).map_err(|e| Error::io(&temp, e))?;
-        f.sync_all().map_err(|e| Error::io(&temp, e))?;
-        drop(f);
-        fs::rename(&temp, &path).map_err(|e| Error::io(&path, e))
-    })();
-    if result.is_err() {
-        let _ = fs::remove_file(&temp);
-    }
-    result?;
-    let warning = File::open(dir).and_then(|d| d.sync_all()).err().map(|e| {
+    let existing = if replace {
+        Existing::Replace
+    } else {
+        Existing::Refuse
+    };
+    disk::write_atomically(disk, dir, name, bytes, existing)?;
+    let warning = disk::sync_dir(disk, dir).err().map(|e| {
         format!(
-            "{}: the folder could not be flushed to disk ({e}); the file itself was flushed. \
-                 Network file systems often refuse this.",
-            dir.display()
+            "{e}; the file itself was flushed (network file systems often refuse to flush a folder)"
         )
     });
     Ok(warning)

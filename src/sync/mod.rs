@@ -40,6 +40,7 @@ use uuid::Uuid;
 
 pub use conflicts::{Conflict, ConflictChoice, ConflictKind, Version, conflicts, resolve_conflict};
 
+use crate::disk::{Disk, OsDisk};
 use crate::store::{Op, Store};
 use crate::{Error, Result};
 use changeset::{Change, ChangeSet};
@@ -270,17 +271,25 @@ pub enum TargetStatus {
 /// Check that `target` exists, is a folder and is writable (by making and
 /// removing a small probe file). This is what "back online" means.
 pub fn target_is_reachable(target: &Path) -> TargetStatus {
+    probe_target(target, &OsDisk)
+}
+
+/// [`target_is_reachable`], writing the probe through `disk`.
+fn probe_target(target: &Path, disk: &dyn Disk) -> TargetStatus {
     match fs::metadata(target) {
         Err(e) => return TargetStatus::Unavailable(format!("cannot be reached ({e})")),
         Ok(m) if !m.is_dir() => return TargetStatus::Unavailable("is not a folder".into()),
         Ok(_) => {}
     }
     let probe = target.join(format!(".fieldcage-probe-{}", Uuid::now_v7().simple()));
-    match fs::write(&probe, b"probe") {
-        Ok(()) => {
-            let _ = fs::remove_file(&probe);
-            TargetStatus::Ready
-        }
+    let written = disk
+        .create(&probe)
+        .and_then(|mut file| disk.write(&mut file, b"probe"));
+    if written.is_ok() || probe.exists() {
+        let _ = disk.remove_file(&probe);
+    }
+    match written {
+        Ok(()) => TargetStatus::Ready,
         Err(e) => TargetStatus::Unavailable(format!("is not writable ({e})")),
     }
 }
@@ -412,8 +421,21 @@ pub fn sync_once(store: &mut Store, target: &Path) -> Result<SyncReport> {
 /// One sync run: write this device's new changes into `target`, then apply
 /// every other device's change-sets found there.
 pub fn sync_with(store: &mut Store, target: &Path, options: &SyncOptions) -> Result<SyncReport> {
+    sync_with_disk(store, target, options, &OsDisk)
+}
+
+/// [`sync_with`], writing every file through `disk` (tests pass one that
+/// fails a step). A failed write ends the run with an error naming the file;
+/// what was written before it is recorded, what was not is written by the
+/// next run.
+pub fn sync_with_disk(
+    store: &mut Store,
+    target: &Path,
+    options: &SyncOptions,
+    disk: &dyn Disk,
+) -> Result<SyncReport> {
     let started = timestamp(store.now_millis());
-    if let TargetStatus::Unavailable(reason) = target_is_reachable(target) {
+    if let TargetStatus::Unavailable(reason) = probe_target(target, disk) {
         return Err(Error::TargetUnavailable {
             target: target.to_path_buf(),
             reason,
@@ -430,7 +452,7 @@ pub fn sync_with(store: &mut Store, target: &Path, options: &SyncOptions) -> Res
         pending_changes: 0,
         finished_at: String::new(),
     };
-    let result = run(store, target, options, &mut report);
+    let result = run(store, target, options, disk, &mut report);
     let finished = timestamp(store.now_millis());
     let _ = store.conn().execute(
         "INSERT INTO sync_run (started_at, finished_at, target, written, applied, skipped, finished) \
@@ -456,9 +478,10 @@ fn run(
     store: &mut Store,
     target: &Path,
     options: &SyncOptions,
+    disk: &dyn Disk,
     report: &mut SyncReport,
 ) -> Result<()> {
-    write_own(store, target, options, report)?;
+    write_own(store, target, options, disk, report)?;
     apply_others(store, target, options, report)?;
     let setups: i64 = store.conn().query_row(
         "SELECT count(*) FROM sync_hidden WHERE table_name = 'experiment'",
@@ -594,6 +617,7 @@ fn write_own(
     store: &mut Store,
     target: &Path,
     options: &SyncOptions,
+    disk: &dyn Disk,
     report: &mut SyncReport,
 ) -> Result<()> {
     let me = store.device_id().to_owned();
@@ -638,7 +662,7 @@ fn write_own(
                 path.display()
             )));
         }
-        if let Some(warning) = changeset::write_atomically(&dir, &name, &bytes, replace)? {
+        if let Some(warning) = changeset::write_atomically(disk, &dir, &name, &bytes, replace)? {
             report.warnings.push(warning);
         }
         report.written.push(WrittenFile {
@@ -746,7 +770,8 @@ fn write_own(
             let (bytes, sha) = changeset::encode(&me, &name, &seen, piece)?;
             let file = changeset::file_name(first.seq);
             let replace = damaged.contains(&file);
-            if let Some(warning) = changeset::write_atomically(&dir, &file, &bytes, replace)? {
+            if let Some(warning) = changeset::write_atomically(disk, &dir, &file, &bytes, replace)?
+            {
                 report.warnings.push(warning);
             }
             record_written(
