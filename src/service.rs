@@ -152,6 +152,7 @@ pub const OPERATIONS: &[(&str, Handler)] = &[
     ("undo", |s, a| run(s, a, Service::undo)),
     ("review", |s, a| run(s, a, Service::review)),
     ("confirm_flag", |s, a| run(s, a, Service::confirm_flag)),
+    ("results", |s, a| run(s, a, Service::results)),
     // Sync (service/syncing.rs).
     ("sync_status", |s, a| run(s, a, Service::sync_status)),
     ("sync_now", |s, a| run(s, a, Service::sync_now)),
@@ -837,6 +838,30 @@ impl Service {
         crate::checks::confirm(&mut store, &req.flag_id, &req.note)
     }
 
+    /// The season's results for the results screen: the chart data, the
+    /// treatments, what each part assumes and how the data were handled.
+    /// Reads only; the analysis runs on the stored rows as they are now.
+    pub fn results(&self, req: ResultsRequest) -> Result<ResultsView> {
+        let store = self.store();
+        let options = crate::analysis::Options {
+            missing_as: req.missing_as.unwrap_or_default(),
+            ..crate::analysis::Options::default()
+        };
+        let r = crate::analysis::analyse(&store, &options)?;
+        drop(store);
+        Ok(ResultsView {
+            title: r
+                .experiment
+                .as_ref()
+                .map(|(code, title)| format!("{title} ({code})")),
+            charts: crate::analysis::charts::charts(&r),
+            assumptions: crate::analysis::report::assumptions(&r),
+            treatments: r.treatments,
+            notes: r.notes,
+            options: r.options,
+        })
+    }
+
     /// Today's visit of `kind` to a cage, started if there is none. A new
     /// visit fulfils the scheduled day of that kind: today's, or an earlier
     /// one not yet visited and still within its grace days; otherwise it is
@@ -1280,6 +1305,33 @@ pub struct ReviewRequest {
     /// Check the whole season instead of one day.
     #[serde(default)]
     pub season: bool,
+}
+
+/// Analyse the season for the results screen.
+#[derive(Debug, Clone, Default, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct ResultsRequest {
+    /// How animals not found at a census count (`dead`, the default, or
+    /// `censored`).
+    #[serde(default)]
+    pub missing_as: Option<crate::analysis::MissingRule>,
+}
+
+/// What the results screen shows.
+#[derive(Debug, Clone, Serialize)]
+pub struct ResultsView {
+    /// Experiment title and code, when the database holds one.
+    pub title: Option<String>,
+    /// Treatments and the roles the contrasts give them.
+    pub treatments: Vec<crate::analysis::TreatmentRole>,
+    /// The chart data.
+    pub charts: crate::analysis::charts::Charts,
+    /// What each part of the results assumes.
+    pub assumptions: crate::analysis::report::Assumptions,
+    /// How the data were handled (visits set aside, impossible counts, …).
+    pub notes: Vec<String>,
+    /// The analysis options used.
+    pub options: crate::analysis::Options,
 }
 
 /// Confirm one flag with a note.

@@ -571,7 +571,9 @@ fn chart_data_covers_every_chart_of_the_results_screen() {
         assert_eq!((c.points[0].day, c.points[0].survival), (0, 1.0));
         assert!(c.points.windows(2).all(|w| w[1].survival <= w[0].survival));
     }
-    // Effect sizes: each response's last day only, each with its interval.
+    // Effect sizes: the report's headline responses (cover total and groups,
+    // richness, Shannon, damage, survival), each on its last day with its
+    // interval; no per-species response.
     assert!(!charts.effect_sizes.is_empty());
     assert!(
         charts
@@ -579,6 +581,34 @@ fn chart_data_covers_every_chart_of_the_results_screen() {
             .iter()
             .all(|e| Some(e.day) == r.last_day(&e.response) && e.ci_low.is_some())
     );
+    assert!(
+        charts
+            .effect_sizes
+            .iter()
+            .all(|e| !e.response.starts_with(analysis::response::COVER_TAXON))
+    );
+    for wanted in ["cover.total", "diversity.shannon", "damage.index"] {
+        assert_eq!(
+            charts
+                .effect_sizes
+                .iter()
+                .filter(|e| e.response == wanted)
+                .count(),
+            3,
+            "three contrasts of {wanted}"
+        );
+    }
+    // The split of the same responses on the same days, as in the tables.
+    let total = charts
+        .predator_split
+        .iter()
+        .find(|p| p.response == "cover.total")
+        .expect("a split of total cover");
+    assert!(
+        r.predator_split.contains(total),
+        "the split row is the table's row"
+    );
+    assert_eq!(Some(total.day), r.last_day("cover.total"));
     // Plain serde data: it serialises to JSON for the UI.
     let json = serde_json::to_value(&charts).unwrap();
     assert!(json["survival_curves"][0]["points"].is_array());
@@ -623,4 +653,73 @@ fn the_report_states_each_result_with_its_assumptions() {
     for t in tables::analysis() {
         assert!(report.contains(&format!("`{}.csv`", t.name)), "{}", t.name);
     }
+}
+
+#[test]
+fn the_results_operation_serves_charts_with_their_assumptions() {
+    let tmp = Temp::new();
+    let store = demo_store(&tmp);
+    let service = fieldcage::service::Service::new(store);
+    let view = service.call("results", serde_json::json!({})).unwrap();
+    // The demo's four treatments (demo_data/definition.toml), in code order.
+    let codes: Vec<&str> = view["treatments"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .map(|t| t["code"].as_str().unwrap())
+        .collect();
+    assert_eq!(codes, ["P", "S", "SB", "SR"]);
+    // Every part of the screen says what it assumes, naming its method's source.
+    for (part, source) in [
+        ("survival", "Kaplan & Meier 1958"),
+        ("summaries", "Student's t"),
+        ("effects", "Hedges, Gurevitch & Curtis 1999"),
+        ("split", "non-consumptive / total"),
+    ] {
+        let text = view["assumptions"][part].as_str().unwrap();
+        assert!(text.contains(source), "{part}: {text}");
+    }
+    // Each effect point lies inside its interval.
+    for e in view["charts"]["effect_sizes"].as_array().unwrap() {
+        let (lo, est, hi) = (
+            e["ci_low"].as_f64().unwrap(),
+            e["lrr"].as_f64().unwrap(),
+            e["ci_high"].as_f64().unwrap(),
+        );
+        assert!(lo <= est && est <= hi, "{e}");
+    }
+    // Counting missing animals as censored can only raise survival: fewer
+    // deaths for the same animals at risk (Kaplan & Meier 1958).
+    let censored = service
+        .call("results", serde_json::json!({ "missing_as": "censored" }))
+        .unwrap();
+    assert_eq!(censored["options"]["missing_as"], "censored");
+    let last = |v: &serde_json::Value, treatment: &str| {
+        let curve = v["charts"]["survival_curves"]
+            .as_array()
+            .unwrap()
+            .iter()
+            .find(|c| c["treatment"] == treatment && c["taxon"] == "SLUG")
+            .unwrap()
+            .clone();
+        curve["points"].as_array().unwrap().last().unwrap()["survival"]
+            .as_f64()
+            .unwrap()
+    };
+    assert!(last(&censored, "SB") >= last(&view, "SB"));
+    assert!(
+        censored["assumptions"]["survival"]
+            .as_str()
+            .unwrap()
+            .contains("censored")
+    );
+    // Bad input names the field and the value.
+    let bad = service
+        .call("results", serde_json::json!({ "missing_as": "maybe" }))
+        .unwrap_err();
+    assert_eq!(
+        (bad.code, bad.field.as_deref()),
+        ("bad_request", Some("missing_as"))
+    );
+    assert!(bad.message.contains("maybe"), "{}", bad.message);
 }

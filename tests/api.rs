@@ -278,6 +278,35 @@ async fn every_operation_round_trips() {
         route["blocks"][0]["cages"][0]["state"], "partial",
         "cover finished, damage not yet"
     );
+    // Results of an experiment whose cover records were removed and whose one
+    // damage visit is left: damage of one cage, with no interval from one
+    // cage, no contrast without a second treatment, no survival.
+    let results = api.ok("results", json!({})).await;
+    for chart in ["cover_over_time", "effect_sizes"] {
+        assert_eq!(results["charts"][chart], json!([]), "{chart}");
+    }
+    let damage = results["charts"]["damage_by_treatment"].as_array().unwrap();
+    assert_eq!(damage.len(), 2, "herbivory index and mean damage");
+    for series in damage {
+        let point = &series["points"][0];
+        assert_eq!(
+            (point["n"].as_i64(), &point["ci_low"]),
+            (Some(1), &Value::Null)
+        );
+    }
+    assert!(
+        results["charts"]["survival_curves"]
+            .as_array()
+            .unwrap()
+            .is_empty()
+    );
+    assert!(
+        results["charts"]["predator_split"]
+            .as_array()
+            .unwrap()
+            .is_empty()
+    );
+    assert_eq!(results["treatments"].as_array().unwrap().len(), 4);
 }
 
 #[tokio::test]
@@ -500,6 +529,8 @@ fn the_ui_is_small_and_self_contained() {
                 .join(name),
         )
         .unwrap();
+        // The SVG namespace is a name (W3C SVG 1.1), not something loaded.
+        let text = text.replace("'http://www.w3.org/2000/svg'", "");
         assert!(
             !text.contains("http://") && !text.contains("https://"),
             "{name} loads nothing from elsewhere"

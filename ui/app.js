@@ -6,6 +6,7 @@ import { h, clear } from './dom.js';
 import { showRoute } from './route.js';
 import { showSheet } from './sheet.js';
 import { showReview } from './review.js';
+import { showResults } from './results.js';
 import { showSettings } from './settings.js';
 import { showConflicts } from './conflicts.js';
 import { refreshSyncState, watchSync } from './sync.js';
@@ -150,6 +151,7 @@ export async function render() {
     if (view === 'cage' && a) await showSheet(main, a);
     else if (view === 'history' && a && b) await showHistory(a, b);
     else if (view === 'review') await showReview(main);
+    else if (view === 'results') await showResults(main);
     else if (view === 'settings') await showSettings(main);
     else if (view === 'conflicts') await showConflicts(main);
     else await showRoute(main, settings());

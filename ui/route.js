@@ -87,7 +87,7 @@ export async function showRoute(main, settings) {
       ),
       h('p', { class: 'progress' }, total.length ? `${done} of ${total.length} cages done today` : 'No visits due on this day.'),
       settings,
-      h('a', { class: 'button', href: '#/review' }, "Day's-end checks"),
+      h('div', { class: 'row' }, h('a', { class: 'button', href: '#/review' }, "Day's-end checks"), h('a', { class: 'button', href: '#/results' }, 'Results')),
       h(
         'label',
         { class: 'toggle' },

@@ -1,13 +1,16 @@
 //! Chart data for the results screen: plain serde structs the UI draws
 //! (cover over time by treatment with intervals, damage by treatment,
-//! survival curves, effect sizes with their intervals). Built from
-//! [`Results`]; nothing here computes a new statistic.
+//! survival curves, effect sizes with their intervals, the predator split).
+//! Built from [`Results`]; nothing here computes a new statistic. The effect
+//! sizes and the split are those of the report's headline responses on their
+//! last day (every response and day is in the analysis tables).
 
 use std::collections::BTreeMap;
 
 use serde::{Deserialize, Serialize};
 
-use super::{Contrast, Results, response};
+use super::report::headline;
+use super::{Contrast, Results, SplitRow, response};
 
 /// One point of a treatment's series: the mean with its t-based 95 % interval.
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
@@ -77,6 +80,8 @@ pub struct EffectPoint {
     pub ci_low: Option<f64>,
     /// 95 % interval.
     pub ci_high: Option<f64>,
+    /// A warning about this estimate (a doubtful normal approximation, …).
+    pub note: Option<String>,
 }
 
 /// Everything the results screen draws.
@@ -88,8 +93,11 @@ pub struct Charts {
     pub damage_by_treatment: Vec<Series>,
     /// Kaplan–Meier curves per treatment and stocked taxon.
     pub survival_curves: Vec<Curve>,
-    /// Effect sizes of every response on its last day.
+    /// Effect sizes of the headline responses on their last day.
     pub effect_sizes: Vec<EffectPoint>,
+    /// The consumptive / non-consumptive split of the headline responses on
+    /// their last day.
+    pub predator_split: Vec<SplitRow>,
 }
 
 fn series(r: &Results, wanted: impl Fn(&str) -> bool) -> Vec<Series> {
@@ -164,7 +172,7 @@ pub fn charts(r: &Results) -> Charts {
     let effect_sizes = r
         .effect
         .iter()
-        .filter(|e| r.last_day(&e.response) == Some(e.day))
+        .filter(|e| headline(&e.response) && r.last_day(&e.response) == Some(e.day))
         .filter_map(|e| {
             Some(EffectPoint {
                 response: e.response.clone(),
@@ -174,13 +182,21 @@ pub fn charts(r: &Results) -> Charts {
                 lrr: e.lrr?,
                 ci_low: e.ci_low,
                 ci_high: e.ci_high,
+                note: e.note.clone(),
             })
         })
+        .collect();
+    let predator_split = r
+        .predator_split
+        .iter()
+        .filter(|p| headline(&p.response) && r.last_day(&p.response) == Some(p.day))
+        .cloned()
         .collect();
     Charts {
         cover_over_time,
         damage_by_treatment,
         survival_curves,
         effect_sizes,
+        predator_split,
     }
 }

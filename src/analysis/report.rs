@@ -5,6 +5,8 @@
 
 use std::fmt::Write as _;
 
+use serde::Serialize;
+
 use super::{Contrast, MissingRule, Results, response};
 use crate::tables;
 
@@ -37,7 +39,7 @@ fn interval(lo: Option<f64>, hi: Option<f64>, decimals: usize) -> String {
 }
 
 /// Whether a response is one of the report's headline responses.
-fn headline(name: &str) -> bool {
+pub(crate) fn headline(name: &str) -> bool {
     name == response::COVER_TOTAL
         || name.starts_with(response::COVER_GROUP)
         || name == "diversity.richness"
@@ -47,8 +49,85 @@ fn headline(name: &str) -> bool {
         || name.starts_with(response::SURVIVAL)
 }
 
+/// Source of the consumptive / non-consumptive split.
+const SPLIT_SOURCE: &str = "Preisser, Bolnick & Benard 2005";
+
+/// What each part of the results assumes, in plain words: the report prints
+/// these under its sections and the results screen beside its charts.
+#[derive(Debug, Clone, PartialEq, Eq, Serialize)]
+pub struct Assumptions {
+    /// Survival of stocked animals (Kaplan–Meier and per-cage rates).
+    pub survival: String,
+    /// Treatment means with t-based intervals; cover, diversity, herbivory.
+    pub summaries: String,
+    /// Log response ratios.
+    pub effects: String,
+    /// The consumptive / non-consumptive split.
+    pub split: String,
+}
+
+/// The assumptions behind a season's results (they name the options used).
+pub fn assumptions(r: &Results) -> Assumptions {
+    let missing = match r.options.missing_as {
+        MissingRule::Dead => {
+            "Animals not found alive in a closed cage count as deaths (eaten or died unseen)."
+        }
+        MissingRule::Censored => {
+            "Only animals found dead count as deaths; missing animals are censored at the census."
+        }
+    };
+    Assumptions {
+        survival: format!(
+            "{missing} Animals are counted, not marked, so the animals of a cage \
+             share one fate process. Kaplan–Meier (Kaplan & Meier 1958) with Greenwood's variance \
+             and a log–log 95 % interval; deaths are placed on the census day that found them \
+             (interval-grouped). Restocked animals enter the risk set on their stocking day \
+             (staggered entry, Pollock et al. 1989) and the initial number stocked is kept. \
+             Per cage (`cage_survival.csv`): proportion recovered (product over census intervals \
+             of the share found alive; N_t / N_0 without restocking), constant-hazard daily \
+             survival (N_t / N_0)^(1/t), and the exposure-day rate of Mayfield (1961, 1975) with \
+             losses at interval midpoints; both daily rates assume a hazard constant over the \
+             season. A count above the animals at risk is capped at that number (see the notes)."
+        ),
+        summaries: "cages are the independent replicates; the 95 % interval is \
+         mean ± t(0.975, n − 1) × SD/√n (Student's t from statrs), which assumes roughly normal \
+         cage values or enough cages for the mean to be. Cover: percent as entered, class \
+         midpoints of the protocol's scale (midpoints are data; midpoint conversion biases \
+         diversity indices, Dembicz & Dengler 2025), or 100 × hits / pins (Elzinga, Salzer & \
+         Willoughby 1998); 0 = looked, absent, and rows not assessed are left out. Diversity from \
+         proportions of species cover: Shannon H′ (natural log), Pielou J′ (NA for one \
+         species), Simpson D (Simpson 1949), 1 − D, 1/D, Hill numbers of order 0, 1, 2 (Hill \
+         1973; Jost 2006). Herbivory index Σ(n_i × i)/N over damage classes (Dirzo & Domínguez \
+         1995) and mean percent damage from class midpoints; damage on a tagged leaf is \
+         cumulative, so a later day includes earlier damage."
+            .to_owned(),
+        effects: format!(
+            "LRR = ln(X̄_T / X̄_C) with variance s_T²/(n_T X̄_T²) + s_C²/(n_C X̄_C²) and a \
+             normal 95 % interval LRR ± 1.959964 SE (Hedges, Gurevitch & Curtis 1999). The normal \
+             approximation is doubtful when X̄/(s/√n) < 3 in a group, and LRR is undefined when a \
+             mean is 0; such rows say so in their note. The {} and {} contrasts share their control, \
+             so they are correlated (covariance s_C²/(n_C X̄_C²); Lajeunesse 2011).",
+            Contrast::LethalVsNoPredator.as_str(),
+            Contrast::RiskVsNoPredator.as_str()
+        ),
+        split: format!(
+            "total = ln(X_lethal / X_none), \
+             non-consumptive = ln(X_risk / X_none), consumptive = ln(X_lethal / X_risk), share = \
+             non-consumptive / total. This assumes a predator that cannot kill frightens herbivores \
+             as much as one that can, and that the two effects add on the log scale; see Abrams 2007 \
+             and Okuyama & Bolker 2007 for when that fails. The share is unstable when the total is \
+             near 0 (flagged when the total's 95 % interval includes 0). Its interval is a percentile \
+             bootstrap: {} resamples of cages with replacement within each treatment, seeded \
+             (base seed {}; one ChaCha8 stream per day and set of cages, shared by every response \
+             measured on those cages; the seed is in each row).",
+            r.options.bootstrap_reps, r.options.bootstrap_seed
+        ),
+    }
+}
+
 /// The report as Markdown.
 pub fn render(r: &Results) -> String {
+    let a = assumptions(r);
     let mut s = String::new();
     let title = r
         .experiment
@@ -112,27 +191,7 @@ pub fn render(r: &Results) -> String {
                 interval(c.ci_low, c.ci_high, 3)
             );
         }
-        let missing = match r.options.missing_as {
-            MissingRule::Dead => {
-                "Animals not found alive in a closed cage count as deaths (eaten or died unseen)."
-            }
-            MissingRule::Censored => {
-                "Only animals found dead count as deaths; missing animals are censored at the census."
-            }
-        };
-        let _ = write!(
-            s,
-            "\nAssumptions: {missing} Animals are counted, not marked, so the animals of a cage \
-             share one fate process. Kaplan–Meier (Kaplan & Meier 1958) with Greenwood's variance \
-             and a log–log 95 % interval; deaths are placed on the census day that found them \
-             (interval-grouped). Restocked animals enter the risk set on their stocking day \
-             (staggered entry, Pollock et al. 1989) and the initial number stocked is kept. \
-             Per cage (`cage_survival.csv`): proportion recovered (product over census intervals \
-             of the share found alive; N_t / N_0 without restocking), constant-hazard daily \
-             survival (N_t / N_0)^(1/t), and the exposure-day rate of Mayfield (1961, 1975) with \
-             losses at interval midpoints; both daily rates assume a hazard constant over the \
-             season. A count above the animals at risk is capped at that number (see the notes).\n\n"
-        );
+        let _ = write!(s, "\nAssumptions: {}\n\n", a.survival);
     }
 
     // Treatment means of the headline responses.
@@ -164,19 +223,7 @@ pub fn render(r: &Results) -> String {
     if !any {
         s.push_str("| (no cover or damage records) | | | | | | |\n");
     }
-    s.push_str(
-        "\nAssumptions: cages are the independent replicates; the 95 % interval is \
-         mean ± t(0.975, n − 1) × SD/√n (Student's t from statrs), which assumes roughly normal \
-         cage values or enough cages for the mean to be. Cover: percent as entered, class \
-         midpoints of the protocol's scale (midpoints are data; midpoint conversion biases \
-         diversity indices, Dembicz & Dengler 2025), or 100 × hits / pins (Elzinga, Salzer & \
-         Willoughby 1998); 0 = looked, absent, and rows not assessed are left out. Diversity from \
-         proportions of species cover: Shannon H′ (natural log), Pielou J′ (NA for one \
-         species), Simpson D (Simpson 1949), 1 − D, 1/D, Hill numbers of order 0, 1, 2 (Hill \
-         1973; Jost 2006). Herbivory index Σ(n_i × i)/N over damage classes (Dirzo & Domínguez \
-         1995) and mean percent damage from class midpoints; damage on a tagged leaf is \
-         cumulative, so a later day includes earlier damage.\n\n",
-    );
+    let _ = write!(s, "\nAssumptions: {}\n\n", a.summaries);
 
     // Effects.
     s.push_str("## Treatment effects (log response ratios)\n\n");
@@ -207,16 +254,7 @@ pub fn render(r: &Results) -> String {
     if !any {
         s.push_str("| (no contrast has data) | | | | | | |\n");
     }
-    let _ = write!(
-        s,
-        "\nAssumptions: LRR = ln(X̄_T / X̄_C) with variance s_T²/(n_T X̄_T²) + s_C²/(n_C X̄_C²) and a \
-         normal 95 % interval LRR ± 1.959964 SE (Hedges, Gurevitch & Curtis 1999). The normal \
-         approximation is doubtful when X̄/(s/√n) < 3 in a group, and LRR is undefined when a \
-         mean is 0; such rows say so in their note. The {} and {} contrasts share their control, \
-         so they are correlated (covariance s_C²/(n_C X̄_C²); Lajeunesse 2011).\n\n",
-        Contrast::LethalVsNoPredator.as_str(),
-        Contrast::RiskVsNoPredator.as_str()
-    );
+    let _ = write!(s, "\nAssumptions: {}\n\n", a.effects);
 
     // Split.
     s.push_str("## Consumptive and non-consumptive predator effects\n\n");
@@ -247,19 +285,7 @@ pub fn render(r: &Results) -> String {
     if !any {
         s.push_str("| (needs treatments with herbivores and no, lethal and risk-only predators) | | | | | | | |\n");
     }
-    let _ = write!(
-        s,
-        "\nAssumptions (Preisser, Bolnick & Benard 2005): total = ln(X_lethal / X_none), \
-         non-consumptive = ln(X_risk / X_none), consumptive = ln(X_lethal / X_risk), share = \
-         non-consumptive / total. This assumes a predator that cannot kill frightens herbivores \
-         as much as one that can, and that the two effects add on the log scale; see Abrams 2007 \
-         and Okuyama & Bolker 2007 for when that fails. The share is unstable when the total is \
-         near 0 (flagged when the total's 95 % interval includes 0). Its interval is a percentile \
-         bootstrap: {} resamples of cages with replacement within each treatment, seeded \
-         (base seed {}; one ChaCha8 stream per day and set of cages, shared by every response \
-         measured on those cages; the seed is in each row).\n\n",
-        r.options.bootstrap_reps, r.options.bootstrap_seed
-    );
+    let _ = write!(s, "\nAssumptions ({}): {}\n\n", SPLIT_SOURCE, a.split);
 
     s.push_str("## Data handling\n\n");
     if r.notes.is_empty() {
