@@ -390,7 +390,8 @@ async fn conflicts_show_both_versions_and_settle_as_keep_mine_or_take_theirs() {
     assert_eq!(c["kind"], "concurrent");
     assert_eq!(c["table"], "census");
     assert_eq!(c["field"], "alive");
-    assert!(c["record"].as_str().unwrap().contains("SLUG"), "{c}");
+    // The record in people's words: the first cage of block B1 on the field day.
+    assert_eq!(c["record"], "census · cage C-01 · 2026-05-25 · SLUG", "{c}");
     let mine = c["mine"].as_str().unwrap();
     let theirs = if mine == "current" {
         "other"

@@ -559,8 +559,14 @@ fn describe_record(store: &Store, table: &str, row_id: &str) -> String {
         None
     };
     if let Some(visit) = visit {
+        // The visit's kind is said once: by the table name, or for a visit here.
+        let kind = if table == "visit" {
+            "v.kind || ' ' || "
+        } else {
+            ""
+        };
         if let Some(cage) = one(&format!(
-            "SELECT e.label || ' · ' || v.kind || ' visit ' || substr(v.visited_at, 1, 10) \
+            "SELECT e.label || ' · ' || {kind}substr(v.visited_at, 1, 10) \
              FROM visit v JOIN enclosure e ON e.id = v.enclosure_id WHERE v.id = {visit}"
         )) {
             parts.push(format!("cage {cage}"));
