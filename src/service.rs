@@ -7,7 +7,7 @@
 //! as saved is on disk.
 //!
 //! The sync operations (status, sync now, conflicts, settings) are in
-//! [`syncing`]; [`auto_sync`] syncs on its own whenever the target is back.
+//! `service/syncing.rs`; [`auto_sync`] syncs on its own whenever the target is back.
 
 pub mod auto_sync;
 mod syncing;
