@@ -6,6 +6,7 @@ use std::process::ExitCode;
 
 use anyhow::Context;
 use clap::{Parser, Subcommand};
+use fieldcage::service::auto_sync;
 use fieldcage::{Store, analysis, checks, demo, export, import, setup, sync};
 
 /// Offline-first field recorder for cage experiments on predators, herbivores and plants.
@@ -76,6 +77,11 @@ enum Command {
         /// (only on a network you trust).
         #[arg(long)]
         lan: bool,
+        /// Seconds between looks at the sync target (set in the settings
+        /// screen or with `device --target`); sync runs on its own when the
+        /// target is reachable and something is new. 0 turns it off.
+        #[arg(long, value_name = "SECS", default_value_t = 5.0)]
+        sync_every: f64,
     },
     /// Day's-end checks: raise, store and list the flags (exit 1 while an
     /// error is open); or confirm a flag with a note.
@@ -147,9 +153,10 @@ enum Command {
         /// The database file.
         #[arg(long)]
         db: PathBuf,
-        /// The shared folder (USB stick, station laptop share, network folder).
+        /// The shared folder (USB stick, station laptop share, network
+        /// folder); default: the target saved with `device --target`.
         #[arg(long)]
-        target: PathBuf,
+        target: Option<PathBuf>,
     },
     /// Show this device's identity and sync state; --name renames the device.
     Device {
@@ -159,6 +166,10 @@ enum Command {
         /// A new human name for this device (shown to the other devices).
         #[arg(long)]
         name: Option<String>,
+        /// Save the sync target folder (absolute path; "" clears it); `serve`
+        /// and the tablet app sync with it on their own.
+        #[arg(long, value_name = "DIR")]
+        target: Option<String>,
     },
     /// List the conflicts left by sync; --keep or --take settles one.
     Conflicts {
@@ -322,6 +333,7 @@ fn run(cli: Cli) -> anyhow::Result<ExitCode> {
             port,
             today,
             lan,
+            sync_every,
         } => {
             let store = if demo {
                 demo::open_or_build(&db).with_context(|| format!("opening {}", db.display()))?
@@ -355,13 +367,18 @@ fn run(cli: Cli) -> anyhow::Result<ExitCode> {
                     db.display()
                 ),
             }
+            let service = std::sync::Arc::new(service);
+            // Kept alive while serving; dropping it stops automatic sync.
+            let _auto_sync = match auto_sync::interval(sync_every)? {
+                Some(every) => Some(auto_sync::AutoSync::start(
+                    std::sync::Arc::clone(&service),
+                    every,
+                )?),
+                None => None,
+            };
             let runtime = tokio::runtime::Runtime::new().context("starting the server runtime")?;
             runtime
-                .block_on(fieldcage::server::serve(
-                    std::sync::Arc::new(service),
-                    addr,
-                    guard,
-                ))
+                .block_on(fieldcage::server::serve(service, addr, guard))
                 .with_context(|| format!("serving on {addr}"))?;
         }
         Command::Results {
@@ -402,16 +419,34 @@ fn run(cli: Cli) -> anyhow::Result<ExitCode> {
         } => fieldcage::crash_writer::run(&db, &log, seed, max_saves)?,
         Command::Sync { db, target } => {
             let mut store = existing_database(&db)?;
+            let target = match target {
+                Some(t) => t,
+                None => sync::saved_target(&store)?.ok_or_else(|| {
+                    anyhow::anyhow!(
+                        "no --target given and none saved: use --target DIR, or save one with \
+                         fieldcage device --db {} --target DIR",
+                        db.display()
+                    )
+                })?,
+            };
             let report = sync::sync_once(&mut store, &target)?;
             print!("{report}");
         }
-        Command::Device { db, name } => {
+        Command::Device { db, name, target } => {
             let mut store = existing_database(&db)?;
+            let name = name.as_deref().map(Store::check_device_name).transpose()?;
+            if let Some(target) = target {
+                sync::save_target(&mut store, &target)?;
+            }
             if let Some(name) = name {
                 store.set_device_name(&name)?;
             }
             println!("device id:   {}", store.device_id());
             println!("device name: {}", store.device_name()?);
+            match sync::saved_target(&store)? {
+                Some(t) => println!("sync target: {}", t.display()),
+                None => println!("sync target: not set"),
+            }
             println!(
                 "changes not yet written for sync: {}",
                 sync::pending_changes(&store)?

@@ -235,7 +235,8 @@ async fn api(
                 "bad_request" => StatusCode::BAD_REQUEST,
                 "invalid_value" => StatusCode::UNPROCESSABLE_ENTITY,
                 "not_found" | "unknown_operation" => StatusCode::NOT_FOUND,
-                "conflict" => StatusCode::CONFLICT,
+                "conflict" | "device_clash" => StatusCode::CONFLICT,
+                "target_unavailable" => StatusCode::SERVICE_UNAVAILABLE,
                 _ => StatusCode::INTERNAL_SERVER_ERROR,
             };
             problem_response(status, problem)

@@ -5,6 +5,14 @@
 //!
 //! A save returns only after its transaction has committed: what the UI shows
 //! as saved is on disk.
+//!
+//! The sync operations (status, sync now, conflicts, settings) are in
+//! `service/syncing.rs`; [`auto_sync`] syncs on its own whenever the target is back.
+
+pub mod auto_sync;
+mod syncing;
+
+pub use syncing::*;
 
 use std::collections::{BTreeMap, HashMap};
 use std::sync::{Mutex, MutexGuard};
@@ -27,7 +35,9 @@ use crate::{Error, Result};
 #[derive(Debug, Clone, PartialEq, Eq, Serialize)]
 pub struct Problem {
     /// Machine-readable code: `bad_request`, `invalid_value`, `not_found`,
-    /// `conflict`, `unknown_operation`, `internal`.
+    /// `conflict`, `target_unavailable` (the sync folder cannot be used now),
+    /// `device_clash` (another database uses this device's identity),
+    /// `unknown_operation`, `internal`.
     pub code: &'static str,
     /// A sentence for the person.
     pub message: String,
@@ -83,6 +93,18 @@ impl From<Error> for Problem {
                 field: Some(format!("{file}:{column}")),
                 value: None,
             },
+            Error::TargetUnavailable { target, .. } => Problem {
+                code: "target_unavailable",
+                message,
+                field: Some("device.sync_target".to_owned()),
+                value: Some(target.display().to_string()),
+            },
+            Error::DeviceClash(_) => Problem {
+                code: "device_clash",
+                message,
+                field: None,
+                value: None,
+            },
             _ => Problem {
                 code: "internal",
                 message,
@@ -98,7 +120,8 @@ pub struct Service {
     store: Mutex<Store>,
     /// The field day the route opens on; `None` = the local date now.
     today: Option<NaiveDate>,
-    device_name: String,
+    /// What automatic sync last did (shown by `sync_status`).
+    auto_sync: Mutex<auto_sync::AutoSyncState>,
 }
 
 impl std::fmt::Debug for Service {
@@ -130,6 +153,15 @@ pub const OPERATIONS: &[(&str, Handler)] = &[
     ("review", |s, a| run(s, a, Service::review)),
     ("confirm_flag", |s, a| run(s, a, Service::confirm_flag)),
     ("results", |s, a| run(s, a, Service::results)),
+    // Sync (service/syncing.rs).
+    ("sync_status", |s, a| run(s, a, Service::sync_status)),
+    ("sync_now", |s, a| run(s, a, Service::sync_now)),
+    ("conflicts", |s, a| run(s, a, Service::conflicts)),
+    ("resolve_conflict", |s, a| {
+        run(s, a, Service::resolve_conflict)
+    }),
+    ("settings", |s, a| run(s, a, Service::settings)),
+    ("save_settings", |s, a| run(s, a, Service::save_settings)),
 ];
 
 /// Parse the arguments (naming the field at fault), run, serialise.
@@ -153,16 +185,12 @@ fn run<Req: DeserializeOwned, Res: Serialize>(
 }
 
 impl Service {
-    /// Serve `store`; the device name is shown on visits recorded here.
+    /// Serve `store`.
     pub fn new(store: Store) -> Service {
-        let device_name = store
-            .conn()
-            .query_row("SELECT name FROM local_device", [], |r| r.get(0))
-            .unwrap_or_else(|_| "device".to_owned());
         Service {
             store: Mutex::new(store),
             today: None,
-            device_name,
+            auto_sync: Mutex::new(auto_sync::AutoSyncState::default()),
         }
     }
 
@@ -226,7 +254,7 @@ impl Service {
             date,
             day: (date - ctx.experiment.start_date).num_days(),
             device_id: store.device_id().to_owned(),
-            device_name: self.device_name.clone(),
+            device_name: store.device_name()?,
             logged_changes: pending,
             operations: OPERATIONS.iter().map(|(n, _)| *n).collect(),
         })
@@ -899,7 +927,12 @@ impl Service {
                 day: planned,
                 visited_at: at,
                 observer: observer.map(str::to_owned),
-                device: Some(self.device_name.clone()),
+                // The device name as set now (the settings screen can change it).
+                device: Some(w.conn().query_row(
+                    "SELECT name FROM local_device WHERE singleton = 1",
+                    [],
+                    |r| r.get(0),
+                )?),
             },
         )
     }

@@ -317,3 +317,49 @@ fn two_tablets_sync_through_a_folder_from_the_command_line() {
     assert_eq!(out.status.code(), Some(2));
     assert!(String::from_utf8_lossy(&out.stderr).contains("missing"));
 }
+
+/// `device --target` saves the sync folder (checked like the settings
+/// screen); `sync` without `--target` then uses it.
+#[test]
+fn a_saved_sync_target_is_used_when_sync_names_none() {
+    let tmp = Temp::new();
+    let cwd = tmp.dir.path();
+    let def = Path::new(env!("CARGO_MANIFEST_DIR")).join("demo_data/definition.toml");
+    ok(&fieldcage(
+        &["init", "--db", "a.db", def.to_str().unwrap(), "--seed", "5"],
+        cwd,
+    ));
+    let out = fieldcage(&["sync", "--db", "a.db"], cwd);
+    assert_eq!(out.status.code(), Some(2));
+    assert!(
+        String::from_utf8_lossy(&out.stderr).contains("--target"),
+        "{}",
+        String::from_utf8_lossy(&out.stderr)
+    );
+    // A relative path is refused, naming the field and the value.
+    let out = fieldcage(&["device", "--db", "a.db", "--target", "share"], cwd);
+    assert_eq!(out.status.code(), Some(2));
+    let err = String::from_utf8_lossy(&out.stderr);
+    assert!(
+        err.contains("device.sync_target") && err.contains("\"share\""),
+        "{err}"
+    );
+    let share = cwd.join("share");
+    let out = ok(&fieldcage(
+        &[
+            "device",
+            "--db",
+            "a.db",
+            "--target",
+            share.to_str().unwrap(),
+        ],
+        cwd,
+    ));
+    assert!(
+        out.contains(&format!("sync target: {}", share.display())),
+        "{out}"
+    );
+    let out = ok(&fieldcage(&["sync", "--db", "a.db"], cwd));
+    assert!(out.contains("1 written"), "{out}");
+    assert!(share.is_dir());
+}

@@ -23,6 +23,7 @@ mod schema;
 mod setup;
 mod store;
 mod sync;
+mod sync_api;
 mod sync_orders;
 mod sync_props;
 mod transfer;

@@ -7,11 +7,13 @@ import { showRoute } from './route.js';
 import { showSheet } from './sheet.js';
 import { showReview } from './review.js';
 import { showResults } from './results.js';
+import { showSettings } from './settings.js';
+import { showConflicts } from './conflicts.js';
+import { refreshSyncState, watchSync } from './sync.js';
 
 const main = document.getElementById('main');
 const where = document.getElementById('where');
 const saveState = document.getElementById('save-state');
-const syncState = document.getElementById('sync-state');
 const notice = document.getElementById('notice');
 
 export const app = {
@@ -68,6 +70,7 @@ export async function save(op, args, { label, table } = {}) {
   } finally {
     app.pending -= 1;
     paintSaveState();
+    refreshSyncState();
   }
 }
 
@@ -149,15 +152,15 @@ export async function render() {
     else if (view === 'history' && a && b) await showHistory(a, b);
     else if (view === 'review') await showReview(main);
     else if (view === 'results') await showResults(main);
+    else if (view === 'settings') await showSettings(main);
+    else if (view === 'conflicts') await showConflicts(main);
     else await showRoute(main, settings());
   } catch (e) {
     clear(main, h('p', { class: 'problem', role: 'alert' }, problemText(e)));
   }
 }
 
-syncState.textContent = navigator.onLine ? 'Sync: not set up' : 'Sync: offline';
-addEventListener('online', () => (syncState.textContent = 'Sync: not set up'));
-addEventListener('offline', () => (syncState.textContent = 'Sync: offline'));
+watchSync();
 addEventListener('hashchange', render);
 paintSaveState();
 render();

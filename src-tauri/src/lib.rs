@@ -6,10 +6,16 @@
 //! The database lives in the app's data folder (`fieldcage.db`), or where
 //! `--db PATH` says. `--demo` builds the invented demo season into a new
 //! database; `--today YYYY-MM-DD` opens the route on a fixed field day.
+//! On launch the app starts the core's automatic sync
+//! ([`fieldcage::service::auto_sync`]) on the same operation set: it syncs
+//! with the folder chosen in Settings whenever it is in reach;
+//! `--sync-every SECS` sets how often it looks (0 = never).
 
 use std::path::PathBuf;
 use std::sync::Arc;
+use std::time::Duration;
 
+use fieldcage::service::auto_sync::{self, AutoSync};
 use fieldcage::service::{Problem, Service};
 use fieldcage::{Store, demo};
 use serde_json::Value;
@@ -40,7 +46,7 @@ pub fn app<R: Runtime>(builder: tauri::Builder<R>) -> tauri::Builder<R> {
 }
 
 /// Command-line options of the tablet app.
-#[derive(Debug, Default, Clone)]
+#[derive(Debug, Clone)]
 pub struct Options {
     /// Database file (default: `fieldcage.db` in the app data folder).
     pub db: Option<PathBuf>,
@@ -48,10 +54,24 @@ pub struct Options {
     pub demo: bool,
     /// Fixed field day.
     pub today: Option<chrono::NaiveDate>,
+    /// How often automatic sync looks at the sync folder (none = off).
+    pub sync_every: Option<Duration>,
+}
+
+impl Default for Options {
+    fn default() -> Self {
+        Options {
+            db: None,
+            demo: false,
+            today: None,
+            sync_every: Some(auto_sync::DEFAULT_EVERY),
+        }
+    }
 }
 
 impl Options {
-    /// Read `--db PATH`, `--demo` and `--today DATE` from the arguments.
+    /// Read `--db PATH`, `--demo`, `--today DATE` and `--sync-every SECS`
+    /// from the arguments.
     pub fn parse(args: impl IntoIterator<Item = String>) -> Result<Options, String> {
         let mut o = Options::default();
         let mut args = args.into_iter();
@@ -66,9 +86,19 @@ impl Options {
                             .map_err(|_| format!("--today: {d:?} is not a date YYYY-MM-DD"))?,
                     );
                 }
+                "--sync-every" => {
+                    let secs = args
+                        .next()
+                        .ok_or("--sync-every needs a number of seconds")?;
+                    o.sync_every = secs
+                        .parse()
+                        .map_err(|_| format!("--sync-every: {secs:?} is not a number of seconds"))
+                        .and_then(|s| auto_sync::interval(s).map_err(|e| e.to_string()))?;
+                }
                 other => {
                     return Err(format!(
-                        "unknown option {other:?}; use --db PATH, --demo, --today YYYY-MM-DD"
+                        "unknown option {other:?}; use --db PATH, --demo, --today YYYY-MM-DD, \
+                         --sync-every SECS"
                     ));
                 }
             }
@@ -89,6 +119,21 @@ pub fn open_service(db: &std::path::Path, options: &Options) -> fieldcage::Resul
         Some(day) => service.with_today(day),
         None => service,
     })
+}
+
+/// Put the operation set into the app's state and start automatic sync on
+/// it (kept in the state too, so it runs as long as the app).
+pub fn manage_service<R: Runtime, M: Manager<R>>(
+    app: &M,
+    service: Service,
+    options: &Options,
+) -> fieldcage::Result<()> {
+    let service = Arc::new(service);
+    if let Some(every) = options.sync_every {
+        app.manage(AutoSync::start(Arc::clone(&service), every)?);
+    }
+    app.manage(service);
+    Ok(())
 }
 
 /// Start the app.
@@ -112,7 +157,7 @@ pub fn run() {
                 }
             };
             let service = open_service(&db, &options)?;
-            app.manage(Arc::new(service));
+            manage_service(app, service, &options)?;
             Ok(())
         })
         .run(tauri::generate_context!())

@@ -1,10 +1,11 @@
 //! The tablet's command surface, without a webview (tauri's `test` feature):
 //! `call` reaches the operation set and answers exactly what the HTTP API
-//! answers, errors included.
+//! answers, errors included; the settings screen's operations; and the
+//! automatic sync the app starts on launch.
 
-use std::sync::Arc;
+use std::time::{Duration, Instant};
 
-use fieldcage_tablet::{Options, app, open_service};
+use fieldcage_tablet::{Options, app, manage_service, open_service};
 use serde_json::{Value, json};
 use tauri::ipc::{CallbackFn, InvokeBody};
 use tauri::test::{INVOKE_KEY, get_ipc_response, mock_builder, mock_context, noop_assets};
@@ -35,18 +36,28 @@ fn demo_app() -> (
     tauri::App<tauri::test::MockRuntime>,
     tauri::WebviewWindow<tauri::test::MockRuntime>,
 ) {
+    demo_app_with(&[])
+}
+
+/// The demo season in a new database, the app set up as on launch.
+fn demo_app_with(
+    extra: &[&str],
+) -> (
+    tempfile::TempDir,
+    tauri::App<tauri::test::MockRuntime>,
+    tauri::WebviewWindow<tauri::test::MockRuntime>,
+) {
     let dir = tempfile::tempdir().expect("temp dir");
-    let options = Options::parse([
-        "--demo".to_owned(),
-        "--today".to_owned(),
-        "2026-06-01".to_owned(),
-    ])
-    .expect("options");
+    let args = ["--demo", "--today", "2026-06-01"]
+        .iter()
+        .chain(extra)
+        .map(|a| (*a).to_owned());
+    let options = Options::parse(args).expect("options");
     let service = open_service(&dir.path().join("tablet.db"), &options).expect("demo database");
     let app = app(mock_builder())
-        .manage(Arc::new(service))
         .build(mock_context(noop_assets()))
         .expect("app builds");
+    manage_service(&app, service, &options).expect("service and automatic sync");
     let webview = tauri::WebviewWindowBuilder::new(&app, "main", Default::default())
         .build()
         .expect("window");
@@ -104,5 +115,75 @@ fn options_are_checked() {
     assert_eq!(
         (o.db.as_deref(), o.demo),
         (Some(std::path::Path::new("x.db")), true)
+    );
+    // Automatic sync: every 5 s unless told (common practice of our own).
+    assert_eq!(o.sync_every, Some(Duration::from_secs(5)));
+    let off = Options::parse(["--sync-every".to_owned(), "0".to_owned()]).expect("ok");
+    assert_eq!(off.sync_every, None);
+    assert!(
+        Options::parse(["--sync-every".to_owned(), "-2".to_owned()])
+            .unwrap_err()
+            .contains("sync-every")
+    );
+}
+
+#[test]
+fn the_settings_screen_operations_work_through_the_command() {
+    let (dir, _app, webview) = demo_app_with(&["--sync-every", "0"]);
+    let settings = invoke(&webview, "settings", json!({})).expect("settings");
+    assert_eq!(settings["sync_target"], Value::Null);
+    assert_eq!(settings["sync_every_secs"], Value::Null, "turned off");
+    let target = dir.path().join("stick");
+    let saved = invoke(
+        &webview,
+        "save_settings",
+        json!({ "device_name": "Tablet West", "sync_target": target.to_str().expect("utf-8") }),
+    )
+    .expect("saved");
+    assert_eq!(saved["device_name"], "Tablet West");
+    assert_eq!(saved["sync_target"], target.to_str().expect("utf-8"));
+    assert!(target.is_dir(), "the folder was made");
+    let status = invoke(&webview, "sync_status", json!({})).expect("status");
+    assert_eq!(status["target_state"], "ready");
+    // The same refusal as over HTTP: the field and the value.
+    let err = invoke(
+        &webview,
+        "save_settings",
+        json!({ "sync_target": "relative/folder" }),
+    )
+    .expect_err("refused");
+    assert_eq!(err["code"], "invalid_value");
+    assert_eq!(err["field"], "device.sync_target");
+    assert_eq!(err["value"], "relative/folder");
+    let again = invoke(&webview, "settings", json!({})).expect("settings");
+    assert_eq!(again["sync_target"], target.to_str().expect("utf-8"));
+}
+
+#[test]
+fn the_app_syncs_on_its_own_once_a_folder_is_set() {
+    let (dir, _app, webview) = demo_app_with(&["--sync-every", "0.1"]);
+    let settings = invoke(&webview, "settings", json!({})).expect("settings");
+    assert_eq!(settings["sync_every_secs"], 0.1);
+    let target = dir.path().join("stick");
+    invoke(
+        &webview,
+        "save_settings",
+        json!({ "sync_target": target.to_str().expect("utf-8") }),
+    )
+    .expect("saved");
+    let own = target.join(settings["device_id"].as_str().expect("device id"));
+    // A bounded wait for the result, not a measure of speed.
+    let deadline = Instant::now() + Duration::from_secs(60);
+    loop {
+        let status = invoke(&webview, "sync_status", json!({})).expect("status");
+        if status["pending_changes"] == 0 && status["last_sync"].is_object() {
+            break;
+        }
+        assert!(Instant::now() < deadline, "no automatic sync: {status}");
+        std::thread::sleep(Duration::from_millis(50));
+    }
+    assert!(
+        std::fs::read_dir(own).expect("own folder").count() > 0,
+        "this tablet's changes are in the folder"
     );
 }

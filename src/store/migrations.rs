@@ -20,6 +20,10 @@ pub const MIGRATIONS: &[(&str, &str)] = &[
         "0003_sync",
         include_str!("../../schemas/sqlite/0003_sync.sql"),
     ),
+    (
+        "0004_sync_target",
+        include_str!("../../schemas/sqlite/0004_sync_target.sql"),
+    ),
 ];
 
 /// The schema version this build writes.

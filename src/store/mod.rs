@@ -156,9 +156,9 @@ impl Store {
         )?)
     }
 
-    /// Rename this device. The name travels in the change-sets this device
-    /// writes from now on; it must be 1 to 60 characters without line breaks.
-    pub fn set_device_name(&mut self, name: &str) -> Result<()> {
+    /// Check a device name as typed: 1 to 60 characters without line breaks
+    /// (surrounding spaces are dropped). Returns the name to store.
+    pub fn check_device_name(name: &str) -> Result<String> {
         let trimmed = name.trim();
         if trimmed.is_empty() || trimmed.chars().count() > 60 {
             return Err(Error::invalid(
@@ -176,9 +176,16 @@ impl Store {
                 "must not hold line breaks or other control characters",
             ));
         }
+        Ok(trimmed.to_owned())
+    }
+
+    /// Rename this device. The name travels in the change-sets this device
+    /// writes from now on; it must pass [`Store::check_device_name`].
+    pub fn set_device_name(&mut self, name: &str) -> Result<()> {
+        let name = Store::check_device_name(name)?;
         self.conn.execute(
             "UPDATE local_device SET name = ?1 WHERE singleton = 1",
-            [trimmed],
+            [name],
         )?;
         Ok(())
     }

@@ -24,12 +24,17 @@
 //! the rules are in `store::merge` and conflicts are listed and
 //! settled with [`conflicts`] and [`resolve_conflict`].
 //!
+//! The target a database syncs with on its own is a local setting
+//! ([`saved_target`], [`save_target`]); [`crate::service::auto_sync`] watches
+//! it and syncs when it is reachable and something is new.
+//!
 //! Never keep the live database in the target or any cloud-synced folder;
 //! only change-set files go there.
 
 mod apply;
 pub mod changeset;
 mod conflicts;
+mod target;
 
 use std::collections::{BTreeMap, HashMap};
 use std::fs;
@@ -39,6 +44,7 @@ use rusqlite::{Connection, OptionalExtension, params};
 use uuid::Uuid;
 
 pub use conflicts::{Conflict, ConflictChoice, ConflictKind, Version, conflicts, resolve_conflict};
+pub use target::{check_target, save_target, saved_target};
 
 use crate::disk::{Disk, OsDisk};
 use crate::store::{Op, Store};

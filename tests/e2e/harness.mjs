@@ -40,11 +40,12 @@ export function initDatabase(definition, name) {
 let nextPort = 18_700 + (process.pid % 500);
 
 /** Start `fieldcage serve` on a database; resolves once it answers. */
-export async function startServer(db, { today, demo = false } = {}) {
+export async function startServer(db, { today, demo = false, syncEvery } = {}) {
   const port = nextPort++;
   const args = ['serve', '--db', db, '--port', String(port)];
   if (today) args.push('--today', today);
   if (demo) args.push('--demo');
+  if (syncEvery !== undefined) args.push('--sync-every', String(syncEvery));
   const child = spawn(BIN, args, { stdio: ['ignore', 'pipe', 'pipe'] });
   let output = '';
   child.stdout.on('data', (d) => (output += d));
@@ -88,4 +89,12 @@ export async function savedAndRedrawn(page, action) {
 
 export async function screenshot(page, name) {
   await page.screenshot({ path: join(ARTIFACTS, `${name}.png`), fullPage: true });
+}
+
+/** Call an operation of a server's API directly (to set up a test). */
+export async function api(url, op, args = {}) {
+  const r = await fetch(`${url}api/${op}`, { method: 'POST', headers: { 'Content-Type': 'application/json' }, body: JSON.stringify(args) });
+  const body = await r.json();
+  if (!r.ok) throw new Error(`${op}: ${r.status} ${JSON.stringify(body)}`);
+  return body;
 }
