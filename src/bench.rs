@@ -209,6 +209,11 @@ pub const EXPORT_RATIO_TARGET: f64 = 2.0;
 pub const CHECKS_SECONDS_TARGET: f64 = 5.0;
 /// …with peak memory under this many bytes (300 MB).
 pub const CHECKS_PEAK_TARGET: u64 = 300_000_000;
+/// Target (sync): a new tablet merges the change-sets of [`CREW`] devices
+/// that recorded a 200-cage season between them in under this many seconds…
+pub const SYNC_MERGE_SECONDS_TARGET: f64 = 5.0;
+/// …and a repeat sync with nothing new takes under this many seconds.
+pub const SYNC_REPEAT_SECONDS_TARGET: f64 = 0.2;
 /// Scaling is called linear when the seconds per season at the largest
 /// scale are at most this many times those at the smallest.
 pub const LINEAR_TOLERANCE: f64 = 1.25;
@@ -769,8 +774,20 @@ pub fn format_report(r: &Report) -> String {
         line(
             format!("sync merge of {CREW} devices ({})", t.work),
             format!("{:.3} s", t.seconds),
-            String::new(),
-            "",
+            format!("< {SYNC_MERGE_SECONDS_TARGET} s"),
+            verdict(t.seconds, SYNC_MERGE_SECONDS_TARGET, true),
+        );
+    }
+    if let Some(t) = r
+        .timings
+        .iter()
+        .find(|t| t.task.starts_with("sync: repeat sync"))
+    {
+        line(
+            format!("repeat sync with nothing new ({})", t.work),
+            format!("{:.3} s", t.seconds),
+            format!("< {SYNC_REPEAT_SECONDS_TARGET} s"),
+            verdict(t.seconds, SYNC_REPEAT_SECONDS_TARGET, true),
         );
     }
     for stage in Stage::ALL {

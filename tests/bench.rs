@@ -81,7 +81,11 @@ fn the_report_prints_every_figure_with_its_ratio_and_verdict() {
         assert!(text.contains(&checks), "{checks} missing:\n{text}");
     }
     // The 10-season targets are printed only when 10 seasons were measured.
-    assert!(!text.contains("< 5 s"));
+    assert!(
+        !text
+            .lines()
+            .any(|l| l.starts_with("| checks") && l.contains("< 5 s"))
+    );
 
     // Linearity: one verdict per stage, following from the figures.
     for stage in Stage::ALL {
@@ -102,7 +106,33 @@ fn the_report_prints_every_figure_with_its_ratio_and_verdict() {
         text.contains("| stage | 1 season(s) | 2 season(s) |"),
         "{text}"
     );
-    assert!(text.contains("sync merge of 10 devices"));
+    // Sync: the merge and the repeat, each with its target (issue #6) and the
+    // verdict its figure gives.
+    for (task, label, target) in [
+        (
+            "sync: a new tablet merges",
+            "sync merge of 10 devices",
+            bench::SYNC_MERGE_SECONDS_TARGET,
+        ),
+        (
+            "sync: repeat sync",
+            "repeat sync with nothing new",
+            bench::SYNC_REPEAT_SECONDS_TARGET,
+        ),
+    ] {
+        let t = report
+            .timings
+            .iter()
+            .find(|t| t.task.starts_with(task))
+            .unwrap();
+        let line = format!(
+            "| {label} ({}) | {:.3} s | < {target} s | {} |",
+            t.work,
+            t.seconds,
+            bench::verdict(t.seconds, target, true)
+        );
+        assert!(text.contains(&line), "{line} missing:\n{text}");
+    }
 }
 
 #[test]
