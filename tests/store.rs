@@ -32,14 +32,7 @@ fn migrations_bring_an_empty_file_to_the_latest_version() {
         migrations::current_version(store.conn()).unwrap(),
         migrations::latest_version()
     );
-    let mut names: Vec<String> = store
-        .conn()
-        .prepare("SELECT name FROM sqlite_schema WHERE type = 'table' ORDER BY name")
-        .unwrap()
-        .query_map([], |r| r.get(0))
-        .unwrap()
-        .collect::<Result<_, _>>()
-        .unwrap();
+    let mut names = crate::util::table_names(&store);
     // The data tables (schemas/tables), then this device's own bookkeeping:
     // identity, change log and the sync tables of 0003_sync.
     names.retain(|n| fieldcage::tables::get(n).is_none());

@@ -53,17 +53,23 @@ pub fn store_with(tmp: &Temp, replacements: &[(&str, &str)], seed: u64) -> Store
     store
 }
 
-/// Every row of every table (tombstones, device and change log included), as
-/// text: two equal snapshots mean nothing at all changed.
-pub fn snapshot(store: &Store) -> String {
-    let conn = store.conn();
-    let mut names: Vec<String> = conn
+/// The names of every table in the database, in name order.
+pub fn table_names(store: &Store) -> Vec<String> {
+    store
+        .conn()
         .prepare("SELECT name FROM sqlite_schema WHERE type = 'table' ORDER BY name")
         .unwrap()
         .query_map([], |r| r.get(0))
         .unwrap()
         .collect::<Result<_, _>>()
-        .unwrap();
+        .unwrap()
+}
+
+/// Every row of every table (tombstones, device and change log included), as
+/// text: two equal snapshots mean nothing at all changed.
+pub fn snapshot(store: &Store) -> String {
+    let conn = store.conn();
+    let mut names = table_names(store);
     names.retain(|n| !n.starts_with("sqlite_"));
     let mut out = String::new();
     for name in names {

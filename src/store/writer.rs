@@ -274,14 +274,7 @@ impl<'a> Writer<'a> {
                 schema.name
             ))?
             .execute([id])?;
-        self.log(
-            Op::Delete,
-            &schema.name,
-            id,
-            None,
-            &Value::Null,
-            &Value::Null,
-        )?;
+        self.log_delete(&schema.name, id)?;
         merge::after_local_change(&self.tx, schema, id)
     }
 
@@ -396,14 +389,7 @@ impl<'a> Writer<'a> {
                 schema.name
             )));
         }
-        self.log(
-            Op::Delete,
-            &schema.name,
-            id,
-            None,
-            &Value::Null,
-            &Value::Null,
-        )?;
+        self.log_delete(&schema.name, id)?;
         merge::forget_hidden(&self.tx, &schema.name, id)?;
         merge::after_local_change(&self.tx, schema, id)
     }
@@ -524,6 +510,11 @@ impl<'a> Writer<'a> {
             }
         }
         Ok(())
+    }
+
+    /// Log the deletion of a row (a whole-row entry with no values).
+    fn log_delete(&mut self, table: &str, row_id: &str) -> Result<()> {
+        self.log(Op::Delete, table, row_id, None, &Value::Null, &Value::Null)
     }
 
     fn log(
