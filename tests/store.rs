@@ -85,6 +85,116 @@ fn every_earlier_version_migrates_to_the_latest() {
 }
 
 #[test]
+fn the_change_log_rebuild_keeps_every_entry_and_the_op_check() {
+    // 0005 rebuilds change_log to write its op check without an IN list.
+    let tmp = Temp::new();
+    let path = tmp.path("v4.db");
+    let rows = [
+        (
+            "d1",
+            1,
+            "insert",
+            Some("alive"),
+            rusqlite::types::Value::Integer(3),
+        ),
+        (
+            "d1",
+            2,
+            "update",
+            Some("alive"),
+            rusqlite::types::Value::Real(2.5),
+        ),
+        ("d2", 1, "delete", None, rusqlite::types::Value::Null),
+        (
+            "d2",
+            2,
+            "restore",
+            None,
+            rusqlite::types::Value::Text("x".into()),
+        ),
+    ];
+    {
+        let conn = Connection::open(&path).unwrap();
+        for (_, sql) in &MIGRATIONS[..4] {
+            conn.execute_batch(sql).unwrap();
+        }
+        for (device, seq, op, field, value) in &rows {
+            conn.execute(
+                "INSERT INTO change_log (device_id, seq, hlc, table_name, row_id, op, field, \
+                 old_value, new_value) VALUES (?1, ?2, 7, 'census', 'r1', ?3, ?4, NULL, ?5)",
+                rusqlite::params![device, seq, op, field, value],
+            )
+            .unwrap();
+        }
+        conn.execute_batch("PRAGMA user_version = 4").unwrap();
+    }
+    let store = Store::open(&path).unwrap();
+    let mut stmt = store
+        .conn()
+        .prepare(
+            "SELECT device_id, seq, op, field, new_value FROM change_log \
+             WHERE table_name = 'census' ORDER BY device_id, seq",
+        )
+        .unwrap();
+    let kept: Vec<(String, i64, String, Option<String>, rusqlite::types::Value)> = stmt
+        .query_map([], |r| {
+            Ok((r.get(0)?, r.get(1)?, r.get(2)?, r.get(3)?, r.get(4)?))
+        })
+        .unwrap()
+        .collect::<rusqlite::Result<_>>()
+        .unwrap();
+    let expected: Vec<_> = rows
+        .iter()
+        .map(|(d, s, o, f, v)| {
+            (
+                d.to_string(),
+                *s as i64,
+                o.to_string(),
+                f.map(str::to_owned),
+                v.clone(),
+            )
+        })
+        .collect();
+    assert_eq!(kept, expected, "every entry, with its value's type");
+    let refused = store.conn().execute(
+        "INSERT INTO change_log (device_id, seq, hlc, table_name, row_id, op) \
+         VALUES ('d3', 1, 1, 'census', 'r1', 'merge')",
+        [],
+    );
+    assert!(
+        refused.unwrap_err().to_string().contains("CHECK"),
+        "an unknown op is still refused"
+    );
+    let index: i64 = store
+        .conn()
+        .query_row(
+            "SELECT count(*) FROM sqlite_schema WHERE type = 'index' AND name = 'change_log_row_idx' \
+             AND tbl_name = 'change_log'",
+            [],
+            |r| r.get(0),
+        )
+        .unwrap();
+    assert_eq!(index, 1, "the row index is rebuilt");
+    // The reason for the rebuild: storing an entry builds no temporary b-tree.
+    let opcodes: Vec<String> = store
+        .conn()
+        .prepare(
+            "EXPLAIN INSERT INTO change_log (device_id, seq, hlc, table_name, row_id, op, field, \
+             old_value, new_value) VALUES (?1, ?2, ?3, ?4, ?5, ?6, ?7, ?8, ?9)",
+        )
+        .unwrap()
+        .query_map(
+            rusqlite::params_from_iter(std::iter::repeat_n(rusqlite::types::Null, 9)),
+            |r| r.get::<_, String>(1),
+        )
+        .unwrap()
+        .collect::<rusqlite::Result<_>>()
+        .unwrap();
+    assert!(opcodes.iter().any(|o| o == "Insert" || o == "IdxInsert"));
+    assert!(!opcodes.iter().any(|o| o == "OpenEphemeral"), "{opcodes:?}");
+}
+
+#[test]
 fn reopening_is_a_no_op() {
     let tmp = Temp::new();
     let path = tmp.path("a.db");

@@ -24,6 +24,10 @@ pub const MIGRATIONS: &[(&str, &str)] = &[
         "0004_sync_target",
         include_str!("../../schemas/sqlite/0004_sync_target.sql"),
     ),
+    (
+        "0005_change_log_op_check",
+        include_str!("../../schemas/sqlite/0005_change_log_op_check.sql"),
+    ),
 ];
 
 /// The schema version this build writes.
