@@ -1205,3 +1205,101 @@ fn tablets_set_up_with_different_seeds_are_told_so() {
     assert_eq!(crate::util::count(&b, "experiment"), 1, "one is shown");
     assert!(r.open_conflicts > 24, "every cage at least: {r}");
 }
+
+/// Change-sets ready together are applied in one transaction; one whose
+/// references fail only at commit must not take the others down with it.
+#[test]
+fn a_change_set_refused_at_commit_leaves_the_others_of_its_batch_applied() {
+    use fieldcage::sync::changeset::{self, Change};
+    let tmp = fast_temp();
+    let target = target(&tmp);
+    let mut a = Device::tiny(&tmp, "a", SEASON_MILLIS);
+    a.sync(&target);
+    let mut c = Device::tiny(&tmp, "c", SEASON_MILLIS + HOUR);
+    c.store
+        .write(|w| w.insert(&census(200, Tiny::visits()[0], Tiny::taxa()[0], 4)))
+        .unwrap();
+    c.sync(&target);
+    // A well-formed change-set of a third device whose census names a visit
+    // that exists nowhere: only the commit's foreign-key check can tell.
+    let stranger = "01a20000-0000-7000-8000-000000000001";
+    let row = crate::util::fixed_id(300).to_string();
+    let value = |field: &str, v: Value| (field.to_owned(), v);
+    let fields = [
+        value("id", Value::Text(row.clone())),
+        value(
+            "visit_id",
+            Value::Text(crate::util::fixed_id(301).to_string()),
+        ),
+        value("taxon_id", Value::Text(Tiny::taxa()[0].to_string())),
+        value("alive", Value::Integer(5)),
+    ];
+    let changes: Vec<Change> = fields
+        .into_iter()
+        .enumerate()
+        .map(|(i, (field, v))| Change {
+            seq: i as i64 + 1,
+            hlc: fieldcage::store::Hlc::new(SEASON_MILLIS, 0).0,
+            table: "census".into(),
+            row_id: row.clone(),
+            op: fieldcage::store::Op::Insert,
+            field: Some(field),
+            old_value: Value::Null,
+            new_value: v,
+        })
+        .collect();
+    let (bytes, _) =
+        changeset::encode(stranger, "stranger", &Default::default(), &changes).unwrap();
+    let folder = target.join(stranger);
+    fs::create_dir_all(&folder).unwrap();
+    let bad = folder.join(changeset::file_name(1));
+    fs::write(&bad, bytes).unwrap();
+
+    let mut b = Device::empty(&tmp, "b", SEASON_MILLIS + 2 * HOUR);
+    let r = b.sync(&target);
+    assert_eq!(r.applied.len(), 2, "a's and c's change-sets: {r}");
+    let refused: Vec<_> = r.skipped.iter().filter(|s| s.file == bad).collect();
+    assert_eq!(refused.len(), 1, "{r}");
+    assert_eq!(refused[0].kind, SkipKind::Rejected);
+    assert!(
+        refused[0].reason.contains("committed") && refused[0].reason.contains("FOREIGN KEY"),
+        "{}",
+        refused[0].reason
+    );
+    assert_eq!(alive(&b, CensusId(crate::util::fixed_id(200))), Some(4));
+    let strangers: i64 = b
+        .store
+        .conn()
+        .query_row(
+            "SELECT count(*) FROM change_log WHERE device_id = ?1",
+            [stranger],
+            |r| r.get(0),
+        )
+        .unwrap();
+    assert_eq!(strangers, 0, "nothing of the refused change-set stays");
+    let rows: i64 = b
+        .store
+        .conn()
+        .query_row("SELECT count(*) FROM census WHERE id = ?1", [&row], |r| {
+            r.get(0)
+        })
+        .unwrap();
+    assert_eq!(rows, 0);
+    // The same tables as a device that never saw the stranger's file.
+    fs::remove_dir_all(&folder).unwrap();
+    let mut d = Device::empty(&tmp, "d", SEASON_MILLIS + 2 * HOUR);
+    d.sync(&target);
+    assert_eq!(data_snapshot(&b.store), data_snapshot(&d.store));
+    // The next run tries it again and refuses it again, naming it.
+    fs::create_dir_all(&folder).unwrap();
+    fs::write(
+        &bad,
+        changeset::encode(stranger, "stranger", &Default::default(), &changes)
+            .unwrap()
+            .0,
+    )
+    .unwrap();
+    let again = b.sync(&target);
+    assert!(again.applied.is_empty(), "{again}");
+    assert!(again.skipped.iter().any(|s| s.file == bad), "{again}");
+}

@@ -49,7 +49,8 @@ pub(crate) fn applied_upto(conn: &rusqlite::Connection, device: &str) -> Result<
         .query_row([device], |r| r.get(0))?)
 }
 
-/// Apply `cs` (read from `file`, `size` bytes) if it is ready.
+/// Apply `cs` (read from `file`, `size` bytes) if it is ready, in a
+/// transaction of its own.
 pub(crate) fn apply(
     store: &mut Store,
     cs: &ChangeSet,
@@ -57,8 +58,84 @@ pub(crate) fn apply(
     size: u64,
     options: &SyncOptions,
 ) -> Result<Outcome> {
-    let me = store.device_id().to_owned();
-    let now = store.now_millis();
+    let mut batch = Batch::begin(store)?;
+    let outcome = batch.offer(cs, file, size, options)?;
+    batch.commit().map_err(|e| Error::ChangeSet {
+        file: file.into(),
+        reason: format!("could not be committed: {e}"),
+    })?;
+    Ok(outcome)
+}
+
+/// Several change-sets applied in ONE IMMEDIATE transaction, all durable at
+/// [`Batch::commit`] or none. Storing the entries of many change-sets costs
+/// far less in one commit than in one commit each (every commit writes
+/// again the pages of the change log's row index that its change-set
+/// touched). A batch that meets an error is dropped whole (rolled back):
+/// the caller applies its change-sets again one by one, so that only the
+/// one at fault is refused.
+pub(crate) struct Batch<'s> {
+    tx: rusqlite::Transaction<'s>,
+    me: String,
+    now: i64,
+    changes: usize,
+}
+
+impl<'s> Batch<'s> {
+    /// Open the transaction.
+    pub fn begin(store: &'s mut Store) -> Result<Batch<'s>> {
+        let me = store.device_id().to_owned();
+        let now = store.now_millis();
+        let tx = store
+            .conn_mut()
+            .transaction_with_behavior(TransactionBehavior::Immediate)?;
+        // References are checked when the transaction commits, so that rows
+        // can be settled in any order within it.
+        tx.execute_batch("PRAGMA defer_foreign_keys = ON")?;
+        Ok(Batch {
+            tx,
+            me,
+            now,
+            changes: 0,
+        })
+    }
+
+    /// Entries applied in this batch so far.
+    pub fn changes(&self) -> usize {
+        self.changes
+    }
+
+    /// Apply `cs` if it is ready. After an error the batch must be dropped.
+    pub fn offer(
+        &mut self,
+        cs: &ChangeSet,
+        file: &str,
+        size: u64,
+        options: &SyncOptions,
+    ) -> Result<Outcome> {
+        let outcome = apply_within(&self.tx, &self.me, self.now, cs, file, size, options)?;
+        if matches!(outcome, Outcome::Applied { .. }) {
+            self.changes += cs.changes.len();
+        }
+        Ok(outcome)
+    }
+
+    /// Commit everything applied (foreign keys are checked here).
+    pub fn commit(self) -> Result<()> {
+        Ok(self.tx.commit()?)
+    }
+}
+
+/// Apply `cs` inside the open transaction `tx` if it is ready.
+fn apply_within(
+    tx: &rusqlite::Connection,
+    me: &str,
+    now: i64,
+    cs: &ChangeSet,
+    file: &str,
+    size: u64,
+    options: &SyncOptions,
+) -> Result<Outcome> {
     let refuse = |reason: String| Error::ChangeSet {
         file: file.into(),
         reason,
@@ -68,10 +145,7 @@ pub(crate) fn apply(
             "holds this device's own changes; they are never applied again".into(),
         ));
     }
-    let tx = store
-        .conn_mut()
-        .transaction_with_behavior(TransactionBehavior::Immediate)?;
-    let upto = applied_upto(&tx, &cs.device_id)?;
+    let upto = applied_upto(tx, &cs.device_id)?;
     if cs.first_seq <= upto {
         let recorded: Option<(i64, String, String)> = tx
             .prepare_cached(
@@ -117,7 +191,7 @@ pub(crate) fn apply(
                 )));
             }
         } else {
-            let have = applied_upto(&tx, device)?;
+            let have = applied_upto(tx, device)?;
             if have < *seq {
                 return Ok(Outcome::Waiting(format!(
                     "waits for device {device}'s changes {}-{seq}, which its author had applied",
@@ -126,9 +200,6 @@ pub(crate) fn apply(
             }
         }
     }
-    // References are checked when the transaction commits, so that rows can
-    // be settled in any order within it.
-    tx.execute_batch("PRAGMA defer_foreign_keys = ON")?;
     {
         let mut insert = tx.prepare_cached(
             "INSERT INTO change_log (device_id, seq, hlc, table_name, row_id, op, field, old_value, new_value) \
@@ -155,7 +226,7 @@ pub(crate) fn apply(
         )?
         .execute(params![cs.device_id, cs.first_seq, device, seq])?;
     }
-    let knowledge = Knowledge::load(&tx)?;
+    let knowledge = Knowledge::load(tx)?;
     // Each row once, in the order its first entry arrived.
     let mut rows: Vec<(&str, &str, Vec<Entry>)> = Vec::new();
     let mut index: HashMap<(&str, &str), usize> = HashMap::new();
@@ -180,11 +251,11 @@ pub(crate) fn apply(
         let schema = tables::get(table)
             .ok_or_else(|| refuse(format!("table_name: {table:?} is not a table")))?;
         settler
-            .settle(&tx, schema, row_id, arrived, &knowledge)
+            .settle(tx, schema, row_id, arrived, &knowledge)
             .map_err(|e| refuse(format!("{table} {row_id}: {e}")))?;
     }
     settler
-        .finish(&tx)
+        .finish(tx)
         .map_err(|e| refuse(format!("settling unique keys: {e}")))?;
     // The clock: never behind anything applied, so that a later local edit
     // always wins over what its author had seen.
@@ -235,7 +306,5 @@ pub(crate) fn apply(
          SELECT ?1, ?2, device_id, max(last_seq) FROM sync_applied GROUP BY device_id",
         params![me, next_seq],
     )?;
-    tx.commit()
-        .map_err(|e| refuse(format!("could not be committed: {e}")))?;
     Ok(Outcome::Applied { ahead })
 }

@@ -212,7 +212,7 @@ pub fn read_bounded(path: &Path) -> Result<Vec<u8>> {
 
 /// Verify and parse change-set bytes; the error says what is wrong.
 pub fn decode(bytes: &[u8]) -> Result<ChangeSet, String> {
-    let body = verify_trailer(bytes)?;
+    let (body, sha256) = verify_trailer(bytes)?;
     let mut reader = csv::ReaderBuilder::new()
         .has_headers(false)
         .flexible(true)
@@ -255,12 +255,12 @@ pub fn decode(bytes: &[u8]) -> Result<ChangeSet, String> {
         last_seq: head.last,
         seen: head.seen,
         changes,
-        sha256: sha256_hex(body),
+        sha256,
     })
 }
 
-/// Check the trailer and return the bytes it covers.
-fn verify_trailer(bytes: &[u8]) -> Result<&[u8], String> {
+/// Check the trailer; the bytes it covers and their SHA-256.
+fn verify_trailer(bytes: &[u8]) -> Result<(&[u8], String), String> {
     let Some(without_end) = bytes.strip_suffix(b"\n") else {
         return Err("does not end with a line break: it is truncated".to_owned());
     };
@@ -281,7 +281,7 @@ fn verify_trailer(bytes: &[u8]) -> Result<&[u8], String> {
             "its content does not match its sha256 trailer (content hashes to {actual}): the file is damaged or incomplete"
         ));
     }
-    Ok(body)
+    Ok((body, actual))
 }
 
 struct Header {

@@ -404,14 +404,7 @@ pub fn apply_changeset(
     Ok(
         match apply::apply(store, cs, source, size_bytes, options)? {
             apply::Outcome::Applied { ahead } => ApplyResult::Applied {
-                anomaly: ahead.map(|a| ClockAnomaly {
-                    device_id: cs.device_id.clone(),
-                    kind: AnomalyKind::Ahead,
-                    clock_millis: crate::store::Hlc(a.hlc).millis(),
-                    local_millis: a.local_millis,
-                    file: Some(source.to_owned()),
-                    noticed_at: timestamp(a.local_millis),
-                }),
+                anomaly: ahead.map(|a| clock_ahead(cs, source, &a)),
             },
             apply::Outcome::AlreadyApplied { file } => ApplyResult::AlreadyApplied { source: file },
             apply::Outcome::Waiting(reason) => ApplyResult::Waiting(reason),
@@ -866,6 +859,7 @@ fn apply_others(
         rows.collect::<rusqlite::Result<_>>()?
     };
     let mut found: Vec<Found> = Vec::new();
+    let mut to_read = Vec::new();
     let mut folders: Vec<(String, PathBuf)> = Vec::new();
     for entry in fs::read_dir(target).map_err(|e| Error::io(target, e))? {
         let entry = entry.map_err(|e| Error::io(target, e))?;
@@ -901,28 +895,32 @@ fn apply_others(
             {
                 continue; // applied before from this very file
             }
-            match changeset::read(&path) {
-                Ok(cs) if cs.device_id != device => report.skipped.push(SkippedFile {
-                    file: path,
-                    kind: SkipKind::Rejected,
-                    reason: format!(
-                        "holds device {}'s changes but lies in device {device}'s folder",
-                        cs.device_id
-                    ),
-                }),
-                Ok(cs) => found.push(Found {
-                    label: format!("{device}/{name}"),
-                    canonical: first == Some(cs.first_seq),
-                    path,
-                    size,
-                    cs,
-                }),
-                Err(e) => report.skipped.push(SkippedFile {
-                    file: path,
-                    kind: SkipKind::Rejected,
-                    reason: strip_path(&e),
-                }),
-            }
+            to_read.push((device.clone(), name, path, size, first));
+        }
+    }
+    let paths: Vec<&Path> = to_read.iter().map(|(_, _, p, _, _)| p.as_path()).collect();
+    for ((device, name, path, size, first), read) in to_read.iter().zip(read_all(&paths)) {
+        match read {
+            Ok(cs) if cs.device_id != *device => report.skipped.push(SkippedFile {
+                file: path.clone(),
+                kind: SkipKind::Rejected,
+                reason: format!(
+                    "holds device {}'s changes but lies in device {device}'s folder",
+                    cs.device_id
+                ),
+            }),
+            Ok(cs) => found.push(Found {
+                label: format!("{device}/{name}"),
+                canonical: *first == Some(cs.first_seq),
+                path: path.clone(),
+                size: *size,
+                cs,
+            }),
+            Err(e) => report.skipped.push(SkippedFile {
+                file: path.clone(),
+                kind: SkipKind::Rejected,
+                reason: strip_path(&e),
+            }),
         }
     }
     // Copies of change-sets applied before, under another name.
@@ -993,35 +991,46 @@ fn apply_others(
     loop {
         let mut progress = false;
         let mut still = Vec::new();
-        for (f, _) in waiting {
-            match apply_changeset(store, &f.cs, &f.label, f.size, options) {
-                Ok(ApplyResult::Applied { anomaly }) => {
-                    progress = true;
-                    report.anomalies.extend(anomaly);
-                    report.applied.push(AppliedFile {
-                        file: f.path,
-                        device_id: f.cs.device_id,
-                        device_name: f.cs.device_name,
-                        first_seq: f.cs.first_seq,
-                        last_seq: f.cs.last_seq,
-                    });
-                }
-                Ok(ApplyResult::AlreadyApplied { source }) => {
-                    if source != f.label {
-                        report.skipped.push(SkippedFile {
-                            file: f.path,
-                            kind: SkipKind::Duplicate,
-                            reason: format!("same change-set as {source}, applied before; skipped"),
-                        });
+        let mut queue: std::collections::VecDeque<Found> =
+            waiting.into_iter().map(|(f, _)| f).collect();
+        while !queue.is_empty() {
+            let (applied, committed) = {
+                let mut batch = apply::Batch::begin(store)?;
+                let mut applied = Vec::new();
+                let mut failed = false;
+                while let Some(f) = queue.pop_front() {
+                    match batch.offer(&f.cs, &f.label, f.size, options) {
+                        Ok(apply::Outcome::Applied { ahead }) => {
+                            let anomaly = ahead.map(|a| clock_ahead(&f.cs, &f.label, &a));
+                            applied.push((f, anomaly));
+                            if batch.changes() >= BATCH_CHANGES {
+                                break;
+                            }
+                        }
+                        Ok(apply::Outcome::AlreadyApplied { file }) => {
+                            if file != f.label {
+                                report.skipped.push(SkippedFile {
+                                    file: f.path,
+                                    kind: SkipKind::Duplicate,
+                                    reason: format!(
+                                        "same change-set as {file}, applied before; skipped"
+                                    ),
+                                });
+                            }
+                        }
+                        Ok(apply::Outcome::Waiting(reason)) => still.push((f, reason)),
+                        Err(_) => {
+                            // Dropped below (rolled back); each change-set of
+                            // the batch is applied again on its own.
+                            applied.push((f, None));
+                            failed = true;
+                            break;
+                        }
                     }
                 }
-                Ok(ApplyResult::Waiting(reason)) => still.push((f, reason)),
-                Err(e) => report.skipped.push(SkippedFile {
-                    file: f.path,
-                    kind: SkipKind::Rejected,
-                    reason: strip_path(&e),
-                }),
-            }
+                (applied, !failed && batch.commit().is_ok())
+            };
+            progress |= report_batch(store, applied, committed, options, report, &mut still)?;
         }
         waiting = still;
         if !progress || waiting.is_empty() {
@@ -1036,6 +1045,115 @@ fn apply_others(
         });
     }
     Ok(())
+}
+
+/// Read and verify change-set files, several at once (one per core, at
+/// most four): results in the order of `paths`. Verifying is hashing and
+/// parsing, which a sync would otherwise do on one core while the others
+/// wait.
+fn read_all(paths: &[&Path]) -> Vec<Result<ChangeSet>> {
+    let workers = std::thread::available_parallelism()
+        .map_or(1, std::num::NonZeroUsize::get)
+        .min(4)
+        .min(paths.len());
+    if workers <= 1 {
+        return paths.iter().map(|p| changeset::read(p)).collect();
+    }
+    let next = std::sync::atomic::AtomicUsize::new(0);
+    let slots: Vec<std::sync::Mutex<Option<Result<ChangeSet>>>> =
+        paths.iter().map(|_| std::sync::Mutex::new(None)).collect();
+    std::thread::scope(|scope| {
+        for _ in 0..workers {
+            scope.spawn(|| {
+                loop {
+                    let i = next.fetch_add(1, std::sync::atomic::Ordering::Relaxed);
+                    let Some(path) = paths.get(i) else { break };
+                    let read = changeset::read(path);
+                    if let Ok(mut slot) = slots[i].lock() {
+                        *slot = Some(read);
+                    }
+                }
+            });
+        }
+    });
+    slots
+        .into_iter()
+        .zip(paths)
+        .map(|(slot, path)| {
+            slot.into_inner().ok().flatten().unwrap_or_else(|| {
+                Err(Error::ChangeSet {
+                    file: path.to_path_buf(),
+                    reason: "could not be read (the reading thread stopped)".into(),
+                })
+            })
+        })
+        .collect()
+}
+
+/// Entries applied in one transaction before it is committed and the next
+/// one begins: large enough that a season's worth of change-sets needs few
+/// commits, small enough to bound the write-ahead log and the work a
+/// failed commit sends back.
+const BATCH_CHANGES: usize = 250_000;
+
+/// Report what a batch applied once it is committed. When it failed (a
+/// change-set could not be applied, or a reference that does not hold was
+/// found at commit), nothing of the batch stayed, and each of its
+/// change-sets is applied again on its own so that only the one at fault is
+/// refused, with its own message. Returns whether anything was applied.
+fn report_batch(
+    store: &mut Store,
+    applied: Vec<(Found, Option<ClockAnomaly>)>,
+    committed: bool,
+    options: &SyncOptions,
+    report: &mut SyncReport,
+    still: &mut Vec<(Found, String)>,
+) -> Result<bool> {
+    let mut progress = false;
+    for (f, anomaly) in applied {
+        let outcome = if committed {
+            Ok(ApplyResult::Applied { anomaly })
+        } else {
+            apply_changeset(store, &f.cs, &f.label, f.size, options)
+        };
+        match outcome {
+            Ok(ApplyResult::Applied { anomaly }) => {
+                progress = true;
+                report.anomalies.extend(anomaly);
+                report.applied.push(applied_file_of(f));
+            }
+            Ok(ApplyResult::AlreadyApplied { .. }) => {}
+            Ok(ApplyResult::Waiting(reason)) => still.push((f, reason)),
+            Err(e) => report.skipped.push(SkippedFile {
+                file: f.path,
+                kind: SkipKind::Rejected,
+                reason: strip_path(&e),
+            }),
+        }
+    }
+    Ok(progress)
+}
+
+fn applied_file_of(f: Found) -> AppliedFile {
+    AppliedFile {
+        file: f.path,
+        device_id: f.cs.device_id,
+        device_name: f.cs.device_name,
+        first_seq: f.cs.first_seq,
+        last_seq: f.cs.last_seq,
+    }
+}
+
+/// The anomaly of a change-set whose clock was far ahead of this device's.
+fn clock_ahead(cs: &ChangeSet, source: &str, a: &apply::ClockAhead) -> ClockAnomaly {
+    ClockAnomaly {
+        device_id: cs.device_id.clone(),
+        kind: AnomalyKind::Ahead,
+        clock_millis: crate::store::Hlc(a.hlc).millis(),
+        local_millis: a.local_millis,
+        file: Some(source.to_owned()),
+        noticed_at: timestamp(a.local_millis),
+    }
 }
 
 /// The file a change-set with exactly this content was applied from, if any.
