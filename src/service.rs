@@ -735,26 +735,27 @@ impl Service {
         tables::get(&req.table)
             .ok_or_else(|| Error::invalid("request", "table", &req.table, "is not a table"))?;
         let store = self.store();
-        let mut stmt = store.conn().prepare(
-            "SELECT device_id, seq, hlc, op, field, old_value, new_value FROM change_log \
-             WHERE table_name = ?1 AND row_id = ?2 ORDER BY hlc, device_id, seq",
-        )?;
-        let rows = stmt.query_map([&req.table, &req.id.to_string()], |r| {
-            let hlc = crate::store::Hlc(r.get(2)?);
-            Ok(Change {
-                device_id: r.get(0)?,
-                seq: r.get(1)?,
-                at: DateTime::from_timestamp_millis(hlc.millis())
-                    .unwrap_or_default()
-                    .to_rfc3339_opts(chrono::SecondsFormat::Secs, true),
-                group: hlc.0,
-                op: r.get(3)?,
-                field: r.get(4)?,
-                old: json_value(r.get(5)?),
-                new: json_value(r.get(6)?),
+        let mut entries =
+            crate::store::log::row_entries(store.conn(), &req.table, &req.id.to_string())?;
+        entries.sort_by(|a, b| (a.hlc, &a.device_id, a.seq).cmp(&(b.hlc, &b.device_id, b.seq)));
+        Ok(entries
+            .into_iter()
+            .map(|e| {
+                let hlc = crate::store::Hlc(e.hlc);
+                Change {
+                    device_id: e.device_id,
+                    seq: e.seq,
+                    at: DateTime::from_timestamp_millis(hlc.millis())
+                        .unwrap_or_default()
+                        .to_rfc3339_opts(chrono::SecondsFormat::Secs, true),
+                    group: hlc.0,
+                    op: e.op.as_str().to_owned(),
+                    field: e.field,
+                    old: json_value(e.old_value),
+                    new: json_value(e.new_value),
+                }
             })
-        })?;
-        Ok(rows.collect::<rusqlite::Result<_>>()?)
+            .collect())
     }
 
     /// Undo the latest change of a record made on this device: an insert is
@@ -764,16 +765,20 @@ impl Service {
         let schema = editable_table(&req.table)?;
         self.write(|w, _| {
             let id = req.id.to_string();
-            let mut stmt = w.conn().prepare(
-                "SELECT device_id, hlc, op, field, old_value FROM change_log \
-                 WHERE table_name = ?1 AND row_id = ?2 ORDER BY hlc DESC, seq DESC",
-            )?;
-            let entries: Vec<(String, i64, String, Option<String>, Value)> = stmt
-                .query_map([&req.table, &id], |r| {
-                    Ok((r.get(0)?, r.get(1)?, r.get(2)?, r.get(3)?, r.get(4)?))
-                })?
-                .collect::<rusqlite::Result<_>>()?;
-            drop(stmt);
+            let mut log = crate::store::log::row_entries(w.conn(), &req.table, &id)?;
+            log.sort_by(|a, b| (b.hlc, b.seq).cmp(&(a.hlc, a.seq)));
+            let entries: Vec<(String, i64, String, Option<String>, Value)> = log
+                .into_iter()
+                .map(|e| {
+                    (
+                        e.device_id,
+                        e.hlc,
+                        e.op.as_str().to_owned(),
+                        e.field,
+                        e.old_value,
+                    )
+                })
+                .collect();
             let Some((device, hlc, op, _, _)) = entries.first().cloned() else {
                 return Err(not_found(&req.table, req.id));
             };

@@ -241,22 +241,17 @@ pub(crate) fn same_value(a: &Value, b: &Value) -> bool {
 
 /// Every change-log entry of one row.
 pub(crate) fn row_entries(conn: &Connection, table: &str, row_id: &str) -> Result<Vec<Entry>> {
-    let mut stmt = conn.prepare_cached(
-        "SELECT device_id, seq, hlc, op, field, new_value FROM change_log \
-         WHERE table_name = ?1 AND row_id = ?2",
-    )?;
-    let rows = stmt.query_map([table, row_id], |r| {
-        let op: String = r.get(3)?;
-        Ok(Entry {
-            device: r.get(0)?,
-            seq: r.get(1)?,
-            hlc: r.get(2)?,
-            op: Op::parse(&op).unwrap_or(Op::Update),
-            field: r.get(4)?,
-            value: r.get(5)?,
+    Ok(super::log::row_entries(conn, table, row_id)?
+        .into_iter()
+        .map(|e| Entry {
+            device: e.device_id,
+            seq: e.seq,
+            hlc: e.hlc,
+            op: e.op,
+            field: e.field,
+            value: e.new_value,
         })
-    })?;
-    Ok(rows.collect::<rusqlite::Result<_>>()?)
+        .collect())
 }
 
 /// The one unique key (besides the id) of a table, as column positions.

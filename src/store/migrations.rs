@@ -25,8 +25,8 @@ pub const MIGRATIONS: &[(&str, &str)] = &[
         include_str!("../../schemas/sqlite/0004_sync_target.sql"),
     ),
     (
-        "0005_change_log_op_check",
-        include_str!("../../schemas/sqlite/0005_change_log_op_check.sql"),
+        "0005_change_log_rebuild",
+        include_str!("../../schemas/sqlite/0005_change_log_rebuild.sql"),
     ),
 ];
 

@@ -9,6 +9,7 @@
 //! the commit returns.
 
 mod hlc;
+pub mod log;
 pub(crate) mod merge;
 pub mod migrations;
 mod rows;

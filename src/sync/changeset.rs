@@ -233,12 +233,15 @@ pub fn decode(bytes: &[u8]) -> Result<ChangeSet, String> {
             format().columns.join(",")
         ));
     }
-    let mut changes = Vec::with_capacity(head.rows as usize);
+    let mut changes: Vec<Change> = Vec::with_capacity(head.rows as usize);
+    // The fields of the insert run the last entry belongs to.
+    let mut run: Vec<String> = Vec::new();
     for (n, record) in records.enumerate() {
         let record = record.map_err(|e| format!("line {}: {e}", n + 3))?;
         let line = record.position().map_or(n as u64 + 3, |p| p.line());
         let expected = head.first + n as i64;
         let change = parse_row(&record, expected).map_err(|e| format!("line {line}: {e}"))?;
+        continue_run(&mut run, changes.last(), &change).map_err(|e| format!("line {line}: {e}"))?;
         changes.push(change);
     }
     if changes.len() as i64 != head.rows {
@@ -257,6 +260,42 @@ pub fn decode(bytes: &[u8]) -> Result<ChangeSet, String> {
         changes,
         sha256,
     })
+}
+
+/// An insert is a run of entries: the row's `id` entry, then at most one
+/// entry per other field of the same row, with nothing between them (how the
+/// writer logs it; the change log's row index relies on it, see
+/// [`crate::store::log`]). `run` holds the fields of the run `last` belongs
+/// to.
+fn continue_run(run: &mut Vec<String>, last: Option<&Change>, c: &Change) -> Result<(), String> {
+    let field = c.field.as_deref().unwrap_or_default();
+    if c.op != Op::Insert {
+        run.clear();
+        return Ok(());
+    }
+    if field == "id" {
+        run.clear();
+        run.push(field.to_owned());
+        return Ok(());
+    }
+    let same_row = last.is_some_and(|l| {
+        l.op == Op::Insert && l.table == c.table && l.row_id == c.row_id && !run.is_empty()
+    });
+    if !same_row {
+        return Err(format!(
+            "the insert entry of {}.{field} for row {} does not follow that row's id entry \
+             (an insert is its id entry, then its other fields)",
+            c.table, c.row_id
+        ));
+    }
+    if run.iter().any(|f| f == field) {
+        return Err(format!(
+            "{}.{field}: given twice in one insert of row {}",
+            c.table, c.row_id
+        ));
+    }
+    run.push(field.to_owned());
+    Ok(())
 }
 
 /// Check the trailer; the bytes it covers and their SHA-256.
@@ -500,6 +539,76 @@ mod tests {
             &changes,
         )
         .unwrap()
+    }
+
+    /// An insert of one census row as the writer logs it, from seq 1.
+    fn insert_run(fields: &[(&str, Value)]) -> Vec<Change> {
+        fields
+            .iter()
+            .enumerate()
+            .map(|(i, (field, value))| Change {
+                seq: i as i64 + 1,
+                hlc: 100 << 16,
+                table: "census".into(),
+                row_id: "0190a1b2-c3d4-7e5f-8a6b-7c8d9e0f1a2b".into(),
+                op: Op::Insert,
+                field: Some((*field).into()),
+                old_value: Value::Null,
+                new_value: value.clone(),
+            })
+            .collect()
+    }
+
+    #[test]
+    fn an_insert_is_read_only_as_its_id_entry_then_its_other_fields() {
+        let id = Value::Text("0190a1b2-c3d4-7e5f-8a6b-7c8d9e0f1a2b".into());
+        let visit = Value::Text("0190a1b2-c3d4-7e5f-8a6b-000000000010".into());
+        let decode_run = |fields: &[(&str, Value)]| {
+            let (bytes, _) = encode(
+                "0190a1b2-c3d4-7e5f-8a6b-0000000000ff",
+                "t",
+                &BTreeMap::new(),
+                &insert_run(fields),
+            )
+            .unwrap();
+            decode(&bytes)
+        };
+        let whole = [
+            ("id", id.clone()),
+            ("visit_id", visit.clone()),
+            ("alive", Value::Integer(3)),
+        ];
+        assert_eq!(decode_run(&whole).unwrap().changes.len(), 3);
+        let headless = decode_run(&whole[1..]).unwrap_err();
+        assert!(
+            headless.starts_with("line 3:") && headless.contains("census.visit_id"),
+            "{headless}"
+        );
+        let twice = decode_run(&[
+            ("id", id.clone()),
+            ("alive", Value::Integer(3)),
+            ("alive", Value::Integer(4)),
+        ])
+        .unwrap_err();
+        assert!(
+            twice.starts_with("line 5:") && twice.contains("given twice"),
+            "{twice}"
+        );
+        // An update between the id and a field breaks the run.
+        let mut broken = insert_run(&whole);
+        broken[1].op = Op::Update;
+        let (bytes, _) = encode(
+            "0190a1b2-c3d4-7e5f-8a6b-0000000000ff",
+            "t",
+            &BTreeMap::new(),
+            &broken,
+        )
+        .unwrap();
+        let e = decode(&bytes).unwrap_err();
+        assert!(
+            e.contains("census.alive") && e.contains("does not follow"),
+            "{e}"
+        );
     }
 
     #[test]

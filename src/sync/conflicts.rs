@@ -244,16 +244,13 @@ fn gone_by(
     table: &str,
     row_id: &str,
 ) -> Result<Version> {
-    let delete: Option<(String, i64)> = conn
-        .query_row(
-            "SELECT device_id, seq FROM change_log WHERE table_name = ?1 AND row_id = ?2 \
-             AND field IS NULL ORDER BY hlc DESC, device_id DESC, seq DESC LIMIT 1",
-            [table, row_id],
-            |r| Ok((r.get(0)?, r.get(1)?)),
-        )
-        .optional()?;
-    if let Some((device, seq)) = delete {
-        let v = version(conn, me, local_name, &device, seq)?;
+    let entries = crate::store::log::row_entries(conn, table, row_id)?;
+    let delete = entries
+        .iter()
+        .filter(|e| e.field.is_none())
+        .max_by(|a, b| (a.hlc, &a.device_id, a.seq).cmp(&(b.hlc, &b.device_id, b.seq)));
+    if let Some(e) = delete {
+        let v = version(conn, me, local_name, &e.device_id, e.seq)?;
         if v.op == Op::Delete {
             return Ok(v);
         }
@@ -270,13 +267,16 @@ fn field_set_by(
     row_id: &str,
     field: &str,
 ) -> Result<Version> {
-    let (device, seq): (String, i64) = conn.query_row(
-        "SELECT device_id, seq FROM change_log WHERE table_name = ?1 AND row_id = ?2 \
-         AND field = ?3 ORDER BY hlc DESC, device_id DESC, seq DESC LIMIT 1",
-        [table, row_id, field],
-        |r| Ok((r.get(0)?, r.get(1)?)),
-    )?;
-    version(conn, me, local_name, &device, seq)
+    let entries = crate::store::log::row_entries(conn, table, row_id)?;
+    let e = entries
+        .iter()
+        .filter(|e| e.field.as_deref() == Some(field))
+        .max_by(|a, b| (a.hlc, &a.device_id, a.seq).cmp(&(b.hlc, &b.device_id, b.seq)))
+        .ok_or_else(|| Error::NotFound {
+            table: table.to_owned(),
+            id: row_id.to_owned(),
+        })?;
+    version(conn, me, local_name, &e.device_id, e.seq)
 }
 
 fn device_name(conn: &Connection, me: &str, local_name: &str, device: &str) -> Result<String> {
@@ -325,14 +325,12 @@ fn creation(
     table: &str,
     row_id: &str,
 ) -> Result<Version> {
-    let (device, seq): (String, i64) = conn
-        .query_row(
-            "SELECT device_id, seq FROM change_log WHERE table_name = ?1 AND row_id = ?2 \
-             AND field = 'id' ORDER BY hlc, device_id, seq LIMIT 1",
-            [table, row_id],
-            |r| Ok((r.get(0)?, r.get(1)?)),
-        )
-        .optional()?
+    let entries = crate::store::log::row_entries(conn, table, row_id)?;
+    let (device, seq) = entries
+        .iter()
+        .filter(|e| e.field.as_deref() == Some("id"))
+        .min_by(|a, b| (a.hlc, &a.device_id, a.seq).cmp(&(b.hlc, &b.device_id, b.seq)))
+        .map(|e| (e.device_id.clone(), e.seq))
         .ok_or_else(|| Error::NotFound {
             table: table.to_owned(),
             id: row_id.to_owned(),
