@@ -766,7 +766,7 @@ impl Service {
         self.write(|w, _| {
             let id = req.id.to_string();
             let mut log = crate::store::log::row_entries(w.conn(), &req.table, &id)?;
-            log.sort_by(|a, b| (b.hlc, b.seq).cmp(&(a.hlc, a.seq)));
+            log.sort_by_key(|e| std::cmp::Reverse((e.hlc, e.seq)));
             let entries: Vec<(String, i64, String, Option<String>, Value)> = log
                 .into_iter()
                 .map(|e| {
