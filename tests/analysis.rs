@@ -457,6 +457,13 @@ fn results_command_prints_the_effect_table() {
         text.contains("Predator effect split") && text.contains("Assumptions:"),
         "{text}"
     );
+    // The same assumption texts as report.md and the results screen.
+    let store = fieldcage::Store::open(cwd.join("d.db")).unwrap();
+    let r = fieldcage::analysis::analyse(&store, &fieldcage::analysis::Options::default()).unwrap();
+    let a = fieldcage::analysis::report::assumptions(&r);
+    for part in [&a.summaries, &a.effects, &a.split] {
+        assert!(text.contains(part.as_str()), "{part}");
+    }
 
     let out = fieldcage_cli(
         &[

@@ -713,3 +713,41 @@ async fn automatic_sync_brings_an_edit_to_the_other_tablet() {
     let settings = a.ok("settings", json!({})).await;
     assert_eq!(settings["sync_every_secs"], Value::Null, "stopped");
 }
+
+/// While automatic sync runs, the status the UI asks for after every save
+/// reuses the poller's last look at the target (a probe writes and removes a
+/// file there); without the poller, the status looks itself.
+#[tokio::test(flavor = "multi_thread", worker_threads = 2)]
+async fn the_status_stands_on_the_running_pollers_look_at_the_target() {
+    let a = Tablet::new();
+    let shared = shared_folder(&a.tmp);
+    set_target(&a, &shared).await;
+    // A long interval: one look at the start, none during the test.
+    let auto = AutoSync::start(Arc::clone(&a.service), Duration::from_secs(3600)).unwrap();
+    let deadline = Instant::now() + Duration::from_secs(60);
+    let mut status = a.ok("sync_status", json!({})).await;
+    while !status["auto_sync"]["last_check_at"].is_string() {
+        assert!(
+            Instant::now() < deadline,
+            "the poller never looked: {status}"
+        );
+        tokio::time::sleep(Duration::from_millis(20)).await;
+        status = a.ok("sync_status", json!({})).await;
+    }
+    assert_eq!(status["target_state"], "ready", "{status}");
+    // The folder goes away after the poller's look: the status still says
+    // what the poller saw moments ago, so it did not probe again.
+    std::fs::remove_dir_all(&shared).unwrap();
+    let status = a.ok("sync_status", json!({})).await;
+    assert_eq!(status["target_state"], "ready", "{status}");
+    drop(auto);
+    let status = a.ok("sync_status", json!({})).await;
+    assert_eq!(status["target_state"], "unavailable", "{status}");
+    assert!(
+        status["target_problem"]
+            .as_str()
+            .unwrap()
+            .contains(shared.to_str().unwrap()),
+        "{status}"
+    );
+}

@@ -66,16 +66,21 @@ pub struct Assumptions {
     pub split: String,
 }
 
-/// The assumptions behind a season's results (they name the options used).
-pub fn assumptions(r: &Results) -> Assumptions {
-    let missing = match r.options.missing_as {
+/// How animals not found alive are counted, in words.
+fn missing_rule(rule: MissingRule) -> &'static str {
+    match rule {
         MissingRule::Dead => {
             "Animals not found alive in a closed cage count as deaths (eaten or died unseen)."
         }
         MissingRule::Censored => {
             "Only animals found dead count as deaths; missing animals are censored at the census."
         }
-    };
+    }
+}
+
+/// The assumptions behind a season's results (they name the options used).
+pub fn assumptions(r: &Results) -> Assumptions {
+    let missing = missing_rule(r.options.missing_as);
     Assumptions {
         survival: format!(
             "{missing} Animals are counted, not marked, so the animals of a cage \
@@ -401,21 +406,16 @@ pub fn effect_table(
         out.push_str("\nPredator effect split (log ratios)\n\n");
         out.push_str(&aligned(&rows));
     }
+    // The same texts as report.md and the results screen (one source).
+    let a = assumptions(results);
     let _ = write!(
         out,
-        "\nAssumptions: cages are independent replicates. LRR interval = LRR ± 1.959964 SE with \
-         SE² = s_T²/(n_T X̄_T²) + s_C²/(n_C X̄_C²) (Hedges, Gurevitch & Curtis 1999); doubtful \
-         when mean/SE < 3. Split after Preisser, Bolnick & Benard 2005: total = ln(lethal/none), \
-         non-consumptive = ln(risk/none), consumptive = ln(lethal/risk), share = \
-         non-consumptive/total; share interval = percentile bootstrap of cages within treatments \
-         ({} resamples, base seed {}). Animals not found alive count as {}. Methods and every \
-         day: export the season and read report.md.\n",
-        results.options.bootstrap_reps,
-        results.options.bootstrap_seed,
-        match results.options.missing_as {
-            MissingRule::Dead => "deaths",
-            MissingRule::Censored => "censored (only animals found dead are deaths)",
-        }
+        "\nAssumptions:\n- Replicates and summaries: {}\n- Effects: {}\n- Split: {}\n- Survival: {}\n\
+         Methods and every day: export the season and read report.md.\n",
+        a.summaries,
+        a.effects,
+        a.split,
+        missing_rule(results.options.missing_as),
     );
     out
 }

@@ -14,7 +14,7 @@ use std::path::{Path, PathBuf};
 use std::sync::Arc;
 use std::sync::mpsc::{self, RecvTimeoutError};
 use std::thread::JoinHandle;
-use std::time::{Duration, SystemTime};
+use std::time::{Duration, Instant, SystemTime};
 
 use chrono::Utc;
 use serde::Serialize;
@@ -26,6 +26,12 @@ use crate::{Error, Result};
 
 /// How often automatic sync looks at the target unless told otherwise.
 pub const DEFAULT_EVERY: Duration = Duration::from_secs(5);
+
+/// How long the running poller's look at the target stands in for a new
+/// probe in `sync_status` (at most twice its interval, and never longer than
+/// this): the status the UI asks for after every save and every few seconds
+/// then costs no file written and removed in the target.
+pub const LOOK_STANDS_FOR: Duration = Duration::from_secs(15);
 
 /// The interval of `--sync-every SECS`: `None` for 0 (automatic sync off).
 pub fn interval(secs: f64) -> Result<Option<Duration>> {
@@ -52,6 +58,18 @@ pub struct AutoSyncState {
     /// Why the last look did not sync (target unavailable, a failed run);
     /// none when it synced or nothing was new.
     pub last_problem: Option<String>,
+    /// The last look's probe of the target (not shown: `sync_status` shows
+    /// the target's state in its own fields).
+    #[serde(skip)]
+    pub(crate) probe: Option<Probe>,
+}
+
+/// One probe of a target by the poller.
+#[derive(Debug, Clone, PartialEq)]
+pub(crate) struct Probe {
+    at: Instant,
+    target: PathBuf,
+    status: TargetStatus,
 }
 
 /// What one look did.
@@ -117,7 +135,15 @@ impl Watch {
             }
             Err(e) => return Look::Failed(e.to_string()),
         };
-        if let TargetStatus::Unavailable(reason) = sync::target_is_reachable(&target) {
+        let status = sync::target_is_reachable(&target);
+        service.update_auto_sync(|s| {
+            s.probe = Some(Probe {
+                at: Instant::now(),
+                target: target.clone(),
+                status: status.clone(),
+            })
+        });
+        if let TargetStatus::Unavailable(reason) = status {
             return Look::Unavailable(format!("sync target {} {reason}", target.display()));
         }
         let now = match listing(&target, &me) {
@@ -222,7 +248,10 @@ impl Drop for AutoSync {
         if let Some(thread) = self.thread.take() {
             let _ = thread.join();
         }
-        self.service.update_auto_sync(|s| s.every_secs = None);
+        self.service.update_auto_sync(|s| {
+            s.every_secs = None;
+            s.probe = None;
+        });
     }
 }
 
@@ -233,6 +262,16 @@ impl Service {
             .lock()
             .unwrap_or_else(|p| p.into_inner())
             .clone()
+    }
+
+    /// The running poller's probe of `target`, when it is recent enough to
+    /// stand for a new one (see [`LOOK_STANDS_FOR`]).
+    pub(crate) fn recent_probe(&self, target: &Path) -> Option<TargetStatus> {
+        let state = self.auto_sync_state();
+        let every = Duration::from_secs_f64(state.every_secs?);
+        let probe = state.probe?;
+        let fresh = (every * 2).min(LOOK_STANDS_FOR);
+        (probe.target == target && probe.at.elapsed() <= fresh).then_some(probe.status)
     }
 
     fn update_auto_sync(&self, f: impl FnOnce(&mut AutoSyncState)) {

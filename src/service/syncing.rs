@@ -316,9 +316,13 @@ impl Service {
                 auto_sync: self.auto_sync_state(),
             }
         };
-        // Probing the folder can be slow on a share: not under the store lock.
+        // Probing the folder can be slow on a share: not under the store lock,
+        // and not at all when the running poller has just done it.
         if let Some(target) = &status.target {
-            match sync::target_is_reachable(Path::new(target)) {
+            let probe = self
+                .recent_probe(Path::new(target))
+                .unwrap_or_else(|| sync::target_is_reachable(Path::new(target)));
+            match probe {
                 TargetStatus::Ready => status.target_state = TargetState::Ready,
                 TargetStatus::Unavailable(reason) => {
                     status.target_state = TargetState::Unavailable;
