@@ -254,3 +254,43 @@ fn a_failing_migration_leaves_the_file_untouched() {
         "the migration rolled back as a whole"
     );
 }
+
+/// A reader connection (for long reads such as the results screen's
+/// analysis) cannot write, and inside one snapshot it sees one state of the
+/// data while the writer goes on.
+#[test]
+fn a_reader_sees_one_snapshot_and_cannot_write() {
+    let tmp = Temp::new();
+    let mut store = crate::util::demo_store(&tmp);
+    let reader = Store::open_reader(store.path()).unwrap();
+    assert_eq!(reader.device_id(), store.device_id());
+    let cover = fieldcage::tables::get("cover_record").unwrap();
+    let id: String = store
+        .conn()
+        .query_row("SELECT id FROM cover_record ORDER BY id LIMIT 1", [], |r| {
+            r.get(0)
+        })
+        .unwrap();
+    let live = |s: &Store| crate::util::count(s, "cover_record");
+    let before = live(&store);
+    let (inside_before, inside_after) = reader
+        .read_snapshot(|r| {
+            let first = live(r);
+            store.write(|w| w.delete(cover, &id)).unwrap();
+            Ok((first, live(r)))
+        })
+        .unwrap();
+    assert_eq!(inside_before, before);
+    assert_eq!(
+        inside_after, before,
+        "the writer's delete is after the snapshot"
+    );
+    assert_eq!(live(&reader), before - 1, "a new read sees it");
+    let refused = reader
+        .conn()
+        .execute("UPDATE cover_record SET notes = 'x' WHERE id = ?1", [&id]);
+    assert!(
+        refused.unwrap_err().to_string().contains("readonly"),
+        "a reader cannot write"
+    );
+}

@@ -133,6 +133,51 @@ impl Store {
         })
     }
 
+    /// A second, read-only connection to the database at `path` (already
+    /// opened and migrated by a [`Store`]), for long reads that must not hold
+    /// up the writer: in WAL mode a reader and the writer do not wait for
+    /// each other. Writes through it fail. Read inside one transaction
+    /// ([`Store::read_snapshot`]) to see one state of the data throughout.
+    pub fn open_reader(path: impl AsRef<Path>) -> Result<Store> {
+        let path = path.as_ref().to_path_buf();
+        let conn = Connection::open_with_flags(
+            &path,
+            rusqlite::OpenFlags::SQLITE_OPEN_READ_ONLY
+                | rusqlite::OpenFlags::SQLITE_OPEN_NO_MUTEX
+                | rusqlite::OpenFlags::SQLITE_OPEN_URI,
+        )?;
+        conn.busy_timeout(std::time::Duration::from_secs(5))?;
+        let version = migrations::current_version(&conn)?;
+        if version != migrations::latest_version() {
+            return Err(Error::State(format!(
+                "{} has schema version {version}, not {}: open it for writing first",
+                path.display(),
+                migrations::latest_version()
+            )));
+        }
+        let device_id: String = conn.query_row(
+            "SELECT device_id FROM local_device WHERE singleton = 1",
+            [],
+            |r| r.get(0),
+        )?;
+        Ok(Store {
+            conn,
+            path,
+            device_id,
+            clock: system_clock(),
+            ids: IdMaker::Clock,
+        })
+    }
+
+    /// Run `f` inside one read transaction, so that every query it makes
+    /// sees the same state of the data.
+    pub fn read_snapshot<T>(&self, f: impl FnOnce(&Store) -> Result<T>) -> Result<T> {
+        self.conn.execute_batch("BEGIN DEFERRED")?;
+        let out = f(self);
+        self.conn.execute_batch("ROLLBACK")?;
+        out
+    }
+
     /// Where the database lives.
     pub fn path(&self) -> &Path {
         &self.path
