@@ -1,5 +1,6 @@
-//! Applying one verified change-set of another device: in ONE IMMEDIATE
-//! transaction, or not at all.
+//! Applying verified change-sets of other devices: each one whole or not at
+//! all, in ONE IMMEDIATE transaction of its own ([`apply`]) or shared with
+//! others that are ready at the same time ([`Batch`]).
 //!
 //! A change-set is applied only when it is next in its device's sequence and
 //! every change-set its header's `seen` list names is applied already
@@ -231,7 +232,7 @@ fn apply_within(
     // order, parents before children. (Not sorted: a child stored before its
     // parent leaves a deferred foreign-key violation outstanding, and while
     // one is, SQLite looks for children at every parent row stored, which
-    // made a season's merge ten times slower.)
+    // made a season's merge more than ten times slower.)
     let mut rows: Vec<(&str, &str, Vec<Entry>)> = Vec::new();
     let mut index: HashMap<(&str, &str), usize> = HashMap::new();
     for c in &cs.changes {
