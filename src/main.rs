@@ -234,7 +234,15 @@ enum Command {
 }
 
 fn main() -> ExitCode {
-    match run(Cli::parse()) {
+    let cli = Cli::parse();
+    // A command's output piped into `head` (or any reader that stops early)
+    // ends it quietly, as it does other command-line tools, instead of a
+    // panic from the next line printed. Not for the server, which must
+    // outlive whatever it writes to.
+    if !matches!(cli.command, Command::Serve { .. }) {
+        sigpipe::reset();
+    }
+    match run(cli) {
         Ok(code) => code,
         Err(e) => {
             eprintln!("fieldcage: {e:#}");

@@ -363,3 +363,34 @@ fn a_saved_sync_target_is_used_when_sync_names_none() {
     assert!(out.contains("1 written"), "{out}");
     assert!(share.is_dir());
 }
+
+/// Output piped into a reader that stops early (`fieldcage check … | head`)
+/// ends the command the way it ends other command-line tools: killed by
+/// SIGPIPE, quietly, not with a panic about printing.
+#[cfg(unix)]
+#[test]
+fn output_into_a_closed_pipe_ends_the_command_quietly() {
+    use std::os::unix::process::ExitStatusExt;
+    use std::process::Stdio;
+    let tmp = Temp::new();
+    let cwd = tmp.dir.path();
+    ok(&fieldcage(&["demo", "--db", "d.db"], cwd));
+    let mut child = Command::new(env!("CARGO_BIN_EXE_fieldcage"))
+        .args(["results", "--db", "d.db"])
+        .current_dir(cwd)
+        .stdout(Stdio::piped())
+        .stderr(Stdio::piped())
+        .spawn()
+        .expect("run fieldcage");
+    // Close the reading end before the analysis has printed anything.
+    drop(child.stdout.take());
+    let out = child.wait_with_output().expect("wait for fieldcage");
+    let stderr = String::from_utf8_lossy(&out.stderr);
+    assert!(!stderr.contains("panicked"), "{stderr}");
+    assert_eq!(
+        out.status.signal(),
+        Some(13),
+        "SIGPIPE: {:?} {stderr}",
+        out.status
+    );
+}
