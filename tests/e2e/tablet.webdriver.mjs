@@ -15,18 +15,31 @@ import { ARTIFACTS } from './harness.mjs';
 
 const DRIVER = process.env.TAURI_DRIVER ?? 'tauri-driver';
 const APP = process.env.FIELDCAGE_TABLET;
-const PORT = 4444 + (process.pid % 1000);
+const PORT = 4444 + (process.pid % 1000) * 2;
+// WebKitWebDriver's own port, per run too: a driver left over from another
+// run must not hold it.
+const NATIVE_PORT = PORT + 1;
 const ELEMENT = 'element-6066-11e4-a52e-4f735466cecf';
 const home = mkdtempSync(join(tmpdir(), 'fieldcage-tablet-'));
 mkdirSync(join(home, 'data'), { recursive: true });
 
 // An isolated data folder: the app never sees the tester's own data.
-const driver = spawn(DRIVER, ['--port', String(PORT)], {
+const driver = spawn(DRIVER, ['--port', String(PORT), '--native-port', String(NATIVE_PORT)], {
   stdio: ['ignore', 'inherit', 'inherit'],
   env: { ...process.env, XDG_DATA_HOME: join(home, 'data'), XDG_CONFIG_HOME: join(home, 'config'), XDG_CACHE_HOME: join(home, 'cache') },
+  // Its own process group, which WebKitWebDriver and the app join.
+  detached: true,
 });
-// tauri-driver starts WebKitWebDriver; end both, whatever state they are in.
-after(() => driver.kill('SIGKILL'));
+// tauri-driver starts WebKitWebDriver; end the whole group, whatever state
+// its processes are in (killing tauri-driver alone left WebKitWebDriver
+// running, holding its port).
+after(() => {
+  try {
+    process.kill(-driver.pid, 'SIGKILL');
+  } catch {
+    driver.kill('SIGKILL');
+  }
+});
 
 async function wd(method, path, body) {
   const r = await fetch(`http://127.0.0.1:${PORT}${path}`, {
