@@ -766,29 +766,26 @@ pub fn format_report(r: &Report) -> String {
             );
         }
     }
-    if let Some(t) = r
-        .timings
-        .iter()
-        .find(|t| t.task.starts_with("sync: a new tablet"))
-    {
-        line(
-            format!("sync merge of {CREW} devices ({})", t.work),
-            format!("{:.3} s", t.seconds),
-            format!("< {SYNC_MERGE_SECONDS_TARGET} s"),
-            verdict(t.seconds, SYNC_MERGE_SECONDS_TARGET, true),
-        );
-    }
-    if let Some(t) = r
-        .timings
-        .iter()
-        .find(|t| t.task.starts_with("sync: repeat sync"))
-    {
-        line(
-            format!("repeat sync with nothing new ({})", t.work),
-            format!("{:.3} s", t.seconds),
-            format!("< {SYNC_REPEAT_SECONDS_TARGET} s"),
-            verdict(t.seconds, SYNC_REPEAT_SECONDS_TARGET, true),
-        );
+    for (task, figure, target) in [
+        (
+            "sync: a new tablet",
+            format!("sync merge of {CREW} devices"),
+            SYNC_MERGE_SECONDS_TARGET,
+        ),
+        (
+            "sync: repeat sync",
+            "repeat sync with nothing new".to_owned(),
+            SYNC_REPEAT_SECONDS_TARGET,
+        ),
+    ] {
+        if let Some(t) = r.timings.iter().find(|t| t.task.starts_with(task)) {
+            line(
+                format!("{figure} ({})", t.work),
+                format!("{:.3} s", t.seconds),
+                format!("< {target} s"),
+                verdict(t.seconds, target, true),
+            );
+        }
     }
     for stage in Stage::ALL {
         let points: Vec<(usize, f64)> = r

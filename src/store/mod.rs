@@ -155,11 +155,9 @@ impl Store {
                 migrations::latest_version()
             )));
         }
-        let device_id: String = conn.query_row(
-            "SELECT device_id FROM local_device WHERE singleton = 1",
-            [],
-            |r| r.get(0),
-        )?;
+        let device_id = stored_device_id(&conn)?.ok_or_else(|| {
+            Error::State(format!("{} has no device identity yet", path.display()))
+        })?;
         Ok(Store {
             conn,
             path,
@@ -402,15 +400,19 @@ fn expect_pragma(name: &'static str, expected: &str, actual: &str) -> Result<()>
 }
 
 /// Make this database's device identity once; return its id.
-fn ensure_device(conn: &mut Connection, clock: &Clock) -> Result<String> {
-    let existing: Option<String> = conn
+/// This database's device id, once made.
+fn stored_device_id(conn: &Connection) -> Result<Option<String>> {
+    Ok(conn
         .query_row(
             "SELECT device_id FROM local_device WHERE singleton = 1",
             [],
             |r| r.get(0),
         )
-        .optional()?;
-    if let Some(id) = existing {
+        .optional()?)
+}
+
+fn ensure_device(conn: &mut Connection, clock: &Clock) -> Result<String> {
+    if let Some(id) = stored_device_id(conn)? {
         return Ok(id);
     }
     let id = Uuid::now_v7().to_string();

@@ -23,6 +23,7 @@
 use rusqlite::types::Value;
 use rusqlite::{Connection, OptionalExtension, params};
 
+use crate::store::log::{self, LogEntry};
 use crate::store::{Op, Store};
 use crate::tables;
 use crate::{Error, Result};
@@ -244,13 +245,13 @@ fn gone_by(
     table: &str,
     row_id: &str,
 ) -> Result<Version> {
-    let entries = crate::store::log::row_entries(conn, table, row_id)?;
+    let entries = log::row_entries(conn, table, row_id)?;
     let delete = entries
         .iter()
         .filter(|e| e.field.is_none())
         .max_by(|a, b| (a.hlc, &a.device_id, a.seq).cmp(&(b.hlc, &b.device_id, b.seq)));
     if let Some(e) = delete {
-        let v = version(conn, me, local_name, &e.device_id, e.seq)?;
+        let v = version_of(conn, me, local_name, row_id, e)?;
         if v.op == Op::Delete {
             return Ok(v);
         }
@@ -267,7 +268,7 @@ fn field_set_by(
     row_id: &str,
     field: &str,
 ) -> Result<Version> {
-    let entries = crate::store::log::row_entries(conn, table, row_id)?;
+    let entries = log::row_entries(conn, table, row_id)?;
     let e = entries
         .iter()
         .filter(|e| e.field.as_deref() == Some(field))
@@ -276,7 +277,7 @@ fn field_set_by(
             table: table.to_owned(),
             id: row_id.to_owned(),
         })?;
-    version(conn, me, local_name, &e.device_id, e.seq)
+    version_of(conn, me, local_name, row_id, e)
 }
 
 fn device_name(conn: &Connection, me: &str, local_name: &str, device: &str) -> Result<String> {
@@ -300,20 +301,40 @@ fn version(
     device: &str,
     seq: i64,
 ) -> Result<Version> {
-    let (hlc, op, value, row_id): (i64, String, Value, String) = conn.query_row(
+    let (hlc, op, new_value, row_id): (i64, String, Value, String) = conn.query_row(
         "SELECT hlc, op, new_value, row_id FROM change_log WHERE device_id = ?1 AND seq = ?2",
         params![device, seq],
         |r| Ok((r.get(0)?, r.get(1)?, r.get(2)?, r.get(3)?)),
     )?;
-    Ok(Version {
+    let entry = LogEntry {
         device_id: device.to_owned(),
-        device_name: device_name(conn, me, local_name, device)?,
-        is_local: device == me,
         seq,
         hlc,
         op: Op::parse(&op).unwrap_or(Op::Update),
-        value,
-        row_id,
+        field: None,
+        old_value: Value::Null,
+        new_value,
+    };
+    version_of(conn, me, local_name, &row_id, &entry)
+}
+
+/// The version an entry of `row_id` already read makes.
+fn version_of(
+    conn: &Connection,
+    me: &str,
+    local_name: &str,
+    row_id: &str,
+    e: &LogEntry,
+) -> Result<Version> {
+    Ok(Version {
+        device_id: e.device_id.clone(),
+        device_name: device_name(conn, me, local_name, &e.device_id)?,
+        is_local: e.device_id == me,
+        seq: e.seq,
+        hlc: e.hlc,
+        op: e.op,
+        value: e.new_value.clone(),
+        row_id: row_id.to_owned(),
     })
 }
 
@@ -325,17 +346,16 @@ fn creation(
     table: &str,
     row_id: &str,
 ) -> Result<Version> {
-    let entries = crate::store::log::row_entries(conn, table, row_id)?;
-    let (device, seq) = entries
+    let entries = log::row_entries(conn, table, row_id)?;
+    let e = entries
         .iter()
         .filter(|e| e.field.as_deref() == Some("id"))
         .min_by(|a, b| (a.hlc, &a.device_id, a.seq).cmp(&(b.hlc, &b.device_id, b.seq)))
-        .map(|e| (e.device_id.clone(), e.seq))
         .ok_or_else(|| Error::NotFound {
             table: table.to_owned(),
             id: row_id.to_owned(),
         })?;
-    let mut v = version(conn, me, local_name, &device, seq)?;
+    let mut v = version_of(conn, me, local_name, row_id, e)?;
     v.value = Value::Null;
     Ok(v)
 }

@@ -1059,35 +1059,28 @@ fn read_all(paths: &[&Path]) -> Vec<Result<ChangeSet>> {
     if workers <= 1 {
         return paths.iter().map(|p| changeset::read(p)).collect();
     }
-    let next = std::sync::atomic::AtomicUsize::new(0);
-    let slots: Vec<std::sync::Mutex<Option<Result<ChangeSet>>>> =
-        paths.iter().map(|_| std::sync::Mutex::new(None)).collect();
-    std::thread::scope(|scope| {
-        for _ in 0..workers {
-            scope.spawn(|| {
-                loop {
-                    let i = next.fetch_add(1, std::sync::atomic::Ordering::Relaxed);
-                    let Some(path) = paths.get(i) else { break };
-                    let read = changeset::read(path);
-                    if let Ok(mut slot) = slots[i].lock() {
-                        *slot = Some(read);
-                    }
-                }
-            });
-        }
-    });
-    slots
-        .into_iter()
-        .zip(paths)
-        .map(|(slot, path)| {
-            slot.into_inner().ok().flatten().unwrap_or_else(|| {
-                Err(Error::ChangeSet {
-                    file: path.to_path_buf(),
-                    reason: "could not be read (the reading thread stopped)".into(),
+    // Worker w reads files w, w + workers, …; the results are put back in order.
+    let mut read: Vec<(usize, Result<ChangeSet>)> = std::thread::scope(|scope| {
+        let handles: Vec<_> = (0..workers)
+            .map(|w| {
+                scope.spawn(move || {
+                    paths
+                        .iter()
+                        .enumerate()
+                        .skip(w)
+                        .step_by(workers)
+                        .map(|(i, p)| (i, changeset::read(p)))
+                        .collect::<Vec<_>>()
                 })
             })
-        })
-        .collect()
+            .collect();
+        handles
+            .into_iter()
+            .flat_map(|h| h.join().unwrap_or_else(|e| std::panic::resume_unwind(e)))
+            .collect()
+    });
+    read.sort_by_key(|(i, _)| *i);
+    read.into_iter().map(|(_, r)| r).collect()
 }
 
 /// Entries applied in one transaction before it is committed and the next
