@@ -244,14 +244,7 @@ fn hlc_timestamps_never_go_backwards_when_the_clock_does() {
     let mut t = store.list::<Treatment>().unwrap()[0].clone();
     t.notes = Some("after the clock reset".into());
     store.write(|w| w.update(&t)).unwrap();
-    let hlcs: Vec<i64> = store
-        .conn()
-        .prepare("SELECT hlc FROM change_log ORDER BY seq")
-        .unwrap()
-        .query_map([], |r| r.get(0))
-        .unwrap()
-        .collect::<Result<_, _>>()
-        .unwrap();
+    let hlcs: Vec<i64> = crate::util::column(&store, "SELECT hlc FROM change_log ORDER BY seq");
     assert!(
         hlcs.windows(2).all(|w| w[0] <= w[1]),
         "timestamps follow the sequence"
@@ -272,14 +265,8 @@ fn the_entries_of_every_row_are_found_through_the_row_index() {
     let tmp = Temp::new();
     let mut store = demo_store(&tmp);
     let cover = tables::get("cover_record").unwrap();
-    let ids: Vec<String> = store
-        .conn()
-        .prepare("SELECT id FROM cover_record ORDER BY id LIMIT 3")
-        .unwrap()
-        .query_map([], |r| r.get(0))
-        .unwrap()
-        .collect::<Result<_, _>>()
-        .unwrap();
+    let ids: Vec<String> =
+        crate::util::column(&store, "SELECT id FROM cover_record ORDER BY id LIMIT 3");
     store
         .write(|w| {
             w.update_fields(cover, &ids[0], &[("notes", Value::Text("edited".into()))])?;

@@ -105,16 +105,20 @@ async fn cage_and_taxon(t: &Tablet, code: &str) -> (String, String) {
     (cage, taxon)
 }
 
+/// The first item of a JSON list that `wanted` accepts (the test fails,
+/// showing the list, when none does).
+fn find_in(list: &Value, wanted: impl Fn(&Value) -> bool) -> &Value {
+    list.as_array()
+        .unwrap_or_else(|| panic!("not a list: {list}"))
+        .iter()
+        .find(|x| wanted(x))
+        .unwrap_or_else(|| panic!("no such item in {list}"))
+}
+
 /// Today's alive count of `taxon` on the cage's sheet.
 async fn alive_on_sheet(t: &Tablet, cage: &str, taxon: &str) -> Value {
     let sheet = t.ok("sheet", json!({ "enclosure_id": cage })).await;
-    sheet["animals"]
-        .as_array()
-        .unwrap()
-        .iter()
-        .find(|a| a["taxon"]["id"] == taxon)
-        .map(|a| a["today"]["alive"].clone())
-        .unwrap()
+    find_in(&sheet["animals"], |a| a["taxon"]["id"] == taxon)["today"]["alive"].clone()
 }
 
 fn shared_folder(tmp: &Temp) -> PathBuf {
@@ -449,13 +453,7 @@ async fn conflicts_show_both_versions_and_settle_as_keep_mine_or_take_theirs() {
     sync_round(&a, &b).await;
     b.ok("sync_now", json!({})).await;
     let listed = b.ok("conflicts", json!({})).await;
-    let c = listed
-        .as_array()
-        .unwrap()
-        .iter()
-        .find(|c| c["kind"] == "deleted")
-        .unwrap_or_else(|| panic!("no edit-against-delete conflict: {listed}"))
-        .clone();
+    let c = find_in(&listed, |c| c["kind"] == "deleted").clone();
     let mine = c["mine"].as_str().unwrap();
     let theirs = if mine == "current" {
         "other"
@@ -521,20 +519,8 @@ async fn two_servers_sharing_a_folder_see_each_others_edits() {
         json!({ "enclosure_id": cage_of(0) }),
     )
     .await;
-    let slug = sheet["animals"]
-        .as_array()
-        .unwrap()
-        .iter()
-        .find(|x| x["taxon"]["code"] == "SLUG")
-        .map(|x| x["taxon"]["id"].clone())
-        .unwrap();
-    let grass = sheet["plants"]
-        .as_array()
-        .unwrap()
-        .iter()
-        .find(|x| x["code"] == "GRA1")
-        .map(|x| x["id"].clone())
-        .unwrap();
+    let slug = find_in(&sheet["animals"], |x| x["taxon"]["code"] == "SLUG")["taxon"]["id"].clone();
+    let grass = find_in(&sheet["plants"], |x| x["code"] == "GRA1")["id"].clone();
     // A counts slugs in the first cage; B estimates grass cover in the second.
     http(
         &client,
@@ -560,13 +546,7 @@ async fn two_servers_sharing_a_folder_see_each_others_edits() {
         json!({ "enclosure_id": cage_of(0) }),
     )
     .await;
-    let census = on_b["animals"]
-        .as_array()
-        .unwrap()
-        .iter()
-        .find(|x| x["taxon"]["id"] == slug)
-        .map(|x| x["today"].clone())
-        .unwrap();
+    let census = find_in(&on_b["animals"], |x| x["taxon"]["id"] == slug)["today"].clone();
     assert_eq!(
         (census["alive"].clone(), census["dead"].clone()),
         (json!(7), json!(1))

@@ -53,16 +53,24 @@ pub fn store_with(tmp: &Temp, replacements: &[(&str, &str)], seed: u64) -> Store
     store
 }
 
-/// The names of every table in the database, in name order.
-pub fn table_names(store: &Store) -> Vec<String> {
+/// The first column of every row a query returns.
+pub fn column<T: rusqlite::types::FromSql>(store: &Store, sql: &str) -> Vec<T> {
     store
         .conn()
-        .prepare("SELECT name FROM sqlite_schema WHERE type = 'table' ORDER BY name")
+        .prepare(sql)
         .unwrap()
         .query_map([], |r| r.get(0))
         .unwrap()
         .collect::<Result<_, _>>()
         .unwrap()
+}
+
+/// The names of every table in the database, in name order.
+pub fn table_names(store: &Store) -> Vec<String> {
+    column(
+        store,
+        "SELECT name FROM sqlite_schema WHERE type = 'table' ORDER BY name",
+    )
 }
 
 /// Every row of every table (tombstones, device and change log included), as
