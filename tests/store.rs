@@ -69,8 +69,8 @@ fn every_earlier_version_migrates_to_the_latest() {
         let path = tmp.path("old.db");
         {
             let conn = Connection::open(&path).unwrap();
-            for (_, sql) in &MIGRATIONS[..from] {
-                conn.execute_batch(sql).unwrap();
+            for m in &MIGRATIONS[..from] {
+                apply(&conn, m);
             }
             conn.execute_batch(&format!("PRAGMA user_version = {from}"))
                 .unwrap();
@@ -84,78 +84,115 @@ fn every_earlier_version_migrates_to_the_latest() {
     }
 }
 
+/// One migration as `migrate` applies it: its SQL, then its Rust step.
+fn apply(conn: &Connection, m: &migrations::Migration) {
+    conn.execute_batch(m.sql).unwrap();
+    if let Some(step) = m.then {
+        step(conn).unwrap();
+    }
+}
+
+/// (device, seq, row, op, field, value) of a change-log entry.
+type Logged = (
+    &'static str,
+    i64,
+    &'static str,
+    &'static str,
+    Option<&'static str>,
+    rusqlite::types::Value,
+);
+
 #[test]
-fn the_change_log_rebuild_keeps_every_entry_and_the_op_check() {
-    // 0005 rebuilds change_log to write its op check without an IN list.
+fn the_change_log_rebuilds_keep_every_entry_and_pack_each_insert() {
+    // 0005 writes the op check without an IN list; 0006-0007 store each
+    // insert run (id entry, then the row's other fields) as one entry.
+    use rusqlite::types::Value;
     let tmp = Temp::new();
     let path = tmp.path("v4.db");
-    let rows = [
-        (
-            "d1",
-            1,
-            "insert",
-            Some("alive"),
-            rusqlite::types::Value::Integer(3),
-        ),
-        (
-            "d1",
-            2,
-            "update",
-            Some("alive"),
-            rusqlite::types::Value::Real(2.5),
-        ),
-        ("d2", 1, "delete", None, rusqlite::types::Value::Null),
-        (
-            "d2",
-            2,
-            "restore",
-            None,
-            rusqlite::types::Value::Text("x".into()),
-        ),
+    #[rustfmt::skip]
+    let rows: Vec<Logged> = vec![
+        ("d1", 1, "r1", "insert", Some("id"), Value::Text("r1".into())),
+        ("d1", 2, "r1", "insert", Some("alive"), Value::Integer(3)),
+        ("d1", 3, "r1", "insert", Some("notes"), Value::Text("x, \"y\"".into())),
+        ("d1", 4, "r1", "update", Some("alive"), Value::Real(2.5)),
+        ("d1", 5, "r2", "insert", Some("id"), Value::Text("r2".into())),
+        ("d1", 6, "r2", "insert", Some("alive"), Value::Real(0.1 + 0.2)),
+        // an insert entry that follows no id entry (never written by
+        // fieldcage) is kept as an insert of its own
+        ("d1", 7, "r1", "insert", Some("dead"), Value::Integer(0)),
+        ("d2", 1, "r1", "delete", None, Value::Null),
+        ("d2", 2, "r1", "restore", None, Value::Null),
     ];
     {
         let conn = Connection::open(&path).unwrap();
-        for (_, sql) in &MIGRATIONS[..4] {
-            conn.execute_batch(sql).unwrap();
+        for m in &MIGRATIONS[..4] {
+            apply(&conn, m);
         }
-        for (device, seq, op, field, value) in &rows {
+        for (device, seq, row, op, field, value) in &rows {
             conn.execute(
                 "INSERT INTO change_log (device_id, seq, hlc, table_name, row_id, op, field, \
-                 old_value, new_value) VALUES (?1, ?2, 7, 'census', 'r1', ?3, ?4, NULL, ?5)",
-                rusqlite::params![device, seq, op, field, value],
+                 old_value, new_value) VALUES (?1, ?2, 7, 'census', ?3, ?4, ?5, NULL, ?6)",
+                rusqlite::params![device, seq, row, op, field, value],
             )
             .unwrap();
         }
         conn.execute_batch("PRAGMA user_version = 4").unwrap();
     }
     let store = Store::open(&path).unwrap();
-    let mut stmt = store
-        .conn()
-        .prepare(
-            "SELECT device_id, seq, op, field, new_value FROM change_log \
-             WHERE table_name = 'census' ORDER BY device_id, seq",
-        )
-        .unwrap();
-    let kept: Vec<(String, i64, String, Option<String>, rusqlite::types::Value)> = stmt
-        .query_map([], |r| {
-            Ok((r.get(0)?, r.get(1)?, r.get(2)?, r.get(3)?, r.get(4)?))
-        })
+    let kept: Vec<_> = fieldcage::store::log::all_entries(store.conn())
         .unwrap()
-        .collect::<rusqlite::Result<_>>()
-        .unwrap();
+        .into_iter()
+        .map(|c| {
+            let e = c.entry;
+            (
+                e.device_id,
+                e.seq,
+                c.row_id,
+                e.op.as_str(),
+                e.field,
+                e.new_value,
+            )
+        })
+        .collect();
     let expected: Vec<_> = rows
         .iter()
-        .map(|(d, s, o, f, v)| {
+        .map(|(d, s, r, o, f, v)| {
             (
                 d.to_string(),
-                *s as i64,
-                o.to_string(),
+                *s,
+                r.to_string(),
+                *o,
                 f.map(str::to_owned),
                 v.clone(),
             )
         })
         .collect();
     assert_eq!(kept, expected, "every entry, with its value's type");
+    let stored: Vec<(String, i64, String)> = store
+        .conn()
+        .prepare("SELECT device_id, seq, op FROM change_log ORDER BY device_id, seq")
+        .unwrap()
+        .query_map([], |r| Ok((r.get(0)?, r.get(1)?, r.get(2)?)))
+        .unwrap()
+        .collect::<rusqlite::Result<_>>()
+        .unwrap();
+    let stored: Vec<(&str, i64, &str)> = stored
+        .iter()
+        .map(|(d, s, o)| (d.as_str(), *s, o.as_str()))
+        .collect();
+    assert_eq!(
+        stored,
+        [
+            ("d1", 1, "insert"),
+            ("d1", 4, "update"),
+            ("d1", 5, "insert"),
+            ("d1", 7, "insert"),
+            ("d2", 1, "delete"),
+            ("d2", 2, "restore"),
+        ],
+        "one stored entry per insert run"
+    );
+    assert_eq!(store.change_count().unwrap(), rows.len() as i64);
     let refused = store.conn().execute(
         "INSERT INTO change_log (device_id, seq, hlc, table_name, row_id, op) \
          VALUES ('d3', 1, 1, 'census', 'r1', 'merge')",
@@ -175,13 +212,10 @@ fn the_change_log_rebuild_keeps_every_entry_and_the_op_check() {
         )
         .unwrap();
     assert_eq!(index, 1, "the row index is rebuilt");
-    // The reason for the rebuild: storing an entry builds no temporary b-tree.
+    // The reason for 0005: storing an entry builds no temporary b-tree.
     let opcodes: Vec<String> = store
         .conn()
-        .prepare(
-            "EXPLAIN INSERT INTO change_log (device_id, seq, hlc, table_name, row_id, op, field, \
-             old_value, new_value) VALUES (?1, ?2, ?3, ?4, ?5, ?6, ?7, ?8, ?9)",
-        )
+        .prepare(&format!("EXPLAIN {}", fieldcage::store::log::INSERT_SQL))
         .unwrap()
         .query_map(
             rusqlite::params_from_iter(std::iter::repeat_n(rusqlite::types::Null, 9)),

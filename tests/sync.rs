@@ -66,9 +66,10 @@ fn files_in(dir: &Path) -> Vec<PathBuf> {
 
 /// Every value of the change log of one row and field, oldest first.
 fn logged_values(d: &Device, row: &str, field: &str) -> Vec<Value> {
+    crate::util::log_entries(&d.store);
     d.store
         .conn()
-        .prepare("SELECT new_value FROM change_log WHERE row_id = ?1 AND field = ?2 ORDER BY hlc")
+        .prepare("SELECT new_value FROM log_entry WHERE row_id = ?1 AND field = ?2 ORDER BY hlc")
         .unwrap()
         .query_map([row, field], |r| r.get(0))
         .unwrap()
@@ -565,9 +566,10 @@ fn a_reused_seq_with_other_content_is_refused_by_the_other_devices() {
 /// Every (device, seq) of every device's log, with its value: the union of
 /// what all devices wrote. Used to show that no edit is lost anywhere.
 fn log_entries(d: &Device) -> std::collections::BTreeSet<(String, i64, String)> {
+    crate::util::log_entries(&d.store);
     d.store
         .conn()
-        .prepare("SELECT device_id, seq, quote(new_value) FROM change_log")
+        .prepare("SELECT device_id, seq, quote(new_value) FROM log_entry")
         .unwrap()
         .query_map([], |r| Ok((r.get(0)?, r.get(1)?, r.get(2)?)))
         .unwrap()
@@ -707,10 +709,11 @@ fn a_clock_set_back_after_a_reboot_keeps_the_order_of_edits() {
     };
     set_alive(&mut a, x, 9);
     assert_eq!(alive(&a, x), Some(9));
+    crate::util::log_entries(&a.store);
     let hlcs: Vec<i64> = a
         .store
         .conn()
-        .prepare("SELECT hlc FROM change_log WHERE row_id = ?1 AND field = 'alive' ORDER BY seq")
+        .prepare("SELECT hlc FROM log_entry WHERE row_id = ?1 AND field = 'alive' ORDER BY seq")
         .unwrap()
         .query_map([x.to_string()], |r| r.get(0))
         .unwrap()

@@ -277,14 +277,9 @@ impl Scenario {
 }
 
 fn last_seq(d: &Device) -> i64 {
-    d.store
-        .conn()
-        .query_row(
-            "SELECT coalesce(max(seq), 0) FROM change_log WHERE device_id = ?1",
-            [d.store.device_id()],
-            |r| r.get(0),
-        )
+    fieldcage::store::log::last_seq(d.store.conn(), d.store.device_id())
         .unwrap()
+        .unwrap_or(0)
 }
 
 fn pick_census(d: &Device, pick: usize) -> Option<Census> {
@@ -545,30 +540,21 @@ pub fn observed(store: &fieldcage::Store) -> Expected {
 
 /// Every change-log entry of a store, in the model's shape.
 pub fn logged(store: &fieldcage::Store) -> Vec<Entry> {
-    let mut stmt = store
-        .conn()
-        .prepare(
-            "SELECT device_id, seq, hlc, table_name, row_id, op, field, old_value, new_value \
-             FROM change_log ORDER BY device_id, seq",
-        )
-        .unwrap();
-    stmt.query_map([], |r| {
-        let op: String = r.get(5)?;
-        Ok(Entry {
-            device: r.get(0)?,
-            seq: r.get(1)?,
-            hlc: r.get(2)?,
-            table: r.get(3)?,
-            row: r.get(4)?,
-            op: Op::parse(&op).unwrap(),
-            field: r.get(6)?,
-            old: r.get(7)?,
-            new: r.get(8)?,
+    fieldcage::store::log::all_entries(store.conn())
+        .unwrap()
+        .into_iter()
+        .map(|c| Entry {
+            device: c.entry.device_id,
+            seq: c.entry.seq,
+            hlc: c.entry.hlc,
+            table: c.table,
+            row: c.row_id,
+            op: c.entry.op,
+            field: c.entry.field,
+            old: c.entry.old_value,
+            new: c.entry.new_value,
         })
-    })
-    .unwrap()
-    .collect::<Result<_, _>>()
-    .unwrap()
+        .collect()
 }
 
 /// The entries of the change-sets a store has applied, plus its own.

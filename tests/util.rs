@@ -65,6 +65,39 @@ pub fn column<T: rusqlite::types::FromSql>(store: &Store, sql: &str) -> Vec<T> {
         .unwrap()
 }
 
+/// Make (afresh) the TEMP table `log_entry`: the change log with one row
+/// per entry as readers see it (each field of an insert its own row, with
+/// its own seq), in the stored columns, for tests to query with SQL. (STRICT,
+/// so that ANY keeps each value's type: 5.0 stays a real.)
+pub fn log_entries(store: &Store) {
+    let conn = store.conn();
+    conn.execute_batch(
+        "DROP TABLE IF EXISTS temp.log_entry; \
+         CREATE TEMP TABLE log_entry (device_id TEXT, seq INTEGER, hlc INTEGER, table_name TEXT, \
+         row_id TEXT, op TEXT, field TEXT, old_value ANY, new_value ANY) STRICT",
+    )
+    .unwrap();
+    let mut insert = conn
+        .prepare("INSERT INTO temp.log_entry VALUES (?1, ?2, ?3, ?4, ?5, ?6, ?7, ?8, ?9)")
+        .unwrap();
+    for c in fieldcage::store::log::all_entries(conn).unwrap() {
+        let e = c.entry;
+        insert
+            .execute(rusqlite::params![
+                e.device_id,
+                e.seq,
+                e.hlc,
+                c.table,
+                c.row_id,
+                e.op.as_str(),
+                e.field,
+                e.old_value,
+                e.new_value
+            ])
+            .unwrap();
+    }
+}
+
 /// The names of every table in the database, in name order.
 pub fn table_names(store: &Store) -> Vec<String> {
     column(

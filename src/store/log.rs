@@ -1,23 +1,27 @@
-//! Reading the change log by row.
+//! The change log: how entries are stored and read back.
 //!
-//! The row index (`change_log_row_idx`, migration 0005) holds every entry
-//! that is not an insert, and of each insert only its `id` entry: an insert
-//! is a run of entries with consecutive seqs on one device, the `id` entry
-//! first and then one entry per other field that has a value (the writer
-//! logs it so, and the change-set reader refuses files that do not). The
-//! other entries of an insert are read from its `id` entry by seq, through
-//! the primary key. Every read of a row's entries goes through
-//! [`row_entries`]; a query by row that does not repeat the index's WHERE
-//! clause would read the whole log.
+//! Every field a write sets has its own sequence number on its device. An
+//! update, a delete and a restore are one stored entry each. A new row is
+//! stored as ONE entry (migration 0006): `op` = 'insert', `field` NULL and
+//! `new_value` the fields it set, packed ([`pack_insert`]): a JSON array of
+//! `[field, value]` pairs in column order, each value in its
+//! [`typed_text`](super::typed_text) form. Its seq is the first of the
+//! consecutive seqs its fields take, one per pair (so a change-set file,
+//! which has one line per field, reads the same as before). Inserts are
+//! nearly all of a season's log, and storing one entry per row instead of one
+//! per field is what lets a new tablet merge a crew's season in seconds.
+//!
+//! Readers see one [`LogEntry`] per field either way: every read of entries
+//! goes through this module, which unpacks inserts.
 
-use rusqlite::Connection;
 use rusqlite::types::Value;
+use rusqlite::{Connection, OptionalExtension, Row, params};
 
-use super::Op;
-use crate::Result;
-use crate::tables;
+use super::{Op, typed_text};
+use crate::{Error, Result};
 
-/// One change-log entry of a row.
+/// One change-log entry: one field of an insert, an update, a delete or a
+/// restore.
 #[derive(Debug, Clone, PartialEq)]
 pub struct LogEntry {
     /// Device that made it.
@@ -36,48 +40,236 @@ pub struct LogEntry {
     pub new_value: Value,
 }
 
-/// The SQL of [`row_entries`]: the indexed entries of the row (`h`), each
-/// with itself and, for an insert's `id` entry, the rest of its run (`c`,
-/// by primary key, within as many seqs as the table has columns).
-const ROW_ENTRIES: &str = "\
-SELECT c.device_id, c.seq, c.hlc, c.op, c.field, c.old_value, c.new_value
-  FROM change_log AS h
-  JOIN change_log AS c
-    ON c.device_id = h.device_id
-   AND c.seq >= h.seq
-   AND c.seq < h.seq + (CASE WHEN h.op = 'insert' THEN ?3 ELSE 1 END)
- WHERE h.table_name = ?1 AND h.row_id = ?2 AND (h.op <> 'insert' OR h.field = 'id')
-   AND c.table_name = ?1 AND c.row_id = ?2
-   AND (c.seq = h.seq OR (c.op = 'insert' AND c.field <> 'id'))";
+/// A [`LogEntry`] with the row it belongs to.
+#[derive(Debug, Clone, PartialEq)]
+pub struct LoggedChange {
+    /// Table of the row.
+    pub table: String,
+    /// Id of the row.
+    pub row_id: String,
+    /// The entry.
+    pub entry: LogEntry,
+}
+
+/// The stored columns every read selects, in this order.
+const COLUMNS: &str = "device_id, seq, hlc, table_name, row_id, op, field, old_value, new_value";
+
+/// The statement that stores one entry.
+pub const INSERT_SQL: &str = "INSERT INTO change_log \
+     (device_id, seq, hlc, table_name, row_id, op, field, old_value, new_value) \
+     VALUES (?1, ?2, ?3, ?4, ?5, ?6, ?7, ?8, ?9)";
+
+/// The packed form of an insert's fields: `[field, value]` pairs, in the
+/// order given (the writer gives the fields that have a value, in column
+/// order).
+pub fn pack_insert<'a>(fields: impl IntoIterator<Item = (&'a str, &'a Value)>) -> String {
+    let pairs: Vec<[String; 2]> = fields
+        .into_iter()
+        .map(|(f, v)| [f.to_owned(), typed_text::encode(v)])
+        .collect();
+    serde_json::to_string(&pairs).unwrap_or_else(|_| "[]".to_owned())
+}
+
+/// The fields of a packed insert, in their order. The error says what is
+/// wrong with the text.
+pub fn unpack_insert(text: &str) -> std::result::Result<Vec<(String, Value)>, String> {
+    let pairs: Vec<(String, String)> = serde_json::from_str(text)
+        .map_err(|e| format!("is not a list of [field, value] pairs ({e})"))?;
+    if pairs.is_empty() {
+        return Err("sets no field".to_owned());
+    }
+    pairs
+        .into_iter()
+        .map(|(field, value)| {
+            typed_text::decode(&value)
+                .map(|v| (field.clone(), v))
+                .map_err(|e| format!("field {field}: {value:?} {e}"))
+        })
+        .collect()
+}
+
+/// How many seqs a stored entry takes: the fields of a packed insert, else 1.
+pub const SPAN_SQL: &str = "CASE WHEN op = 'insert' THEN json_array_length(new_value) ELSE 1 END";
+
+/// Read one stored entry and append the [`LoggedChange`]s it holds.
+fn expand(r: &Row<'_>, out: &mut Vec<LoggedChange>) -> Result<()> {
+    let device_id: String = r.get(0)?;
+    let seq: i64 = r.get(1)?;
+    let hlc: i64 = r.get(2)?;
+    let table: String = r.get(3)?;
+    let row_id: String = r.get(4)?;
+    let op_word: String = r.get(5)?;
+    let op = Op::parse(&op_word).ok_or_else(|| {
+        Error::State(format!(
+            "change log entry {device_id}/{seq}: op {op_word:?} is not insert, update, delete or restore"
+        ))
+    })?;
+    if op == Op::Insert {
+        let text: String = r.get(8)?;
+        let fields = unpack_insert(&text).map_err(|e| {
+            Error::State(format!(
+                "change log entry {device_id}/{seq}: the insert {e}"
+            ))
+        })?;
+        for (i, (field, value)) in fields.into_iter().enumerate() {
+            out.push(LoggedChange {
+                table: table.clone(),
+                row_id: row_id.clone(),
+                entry: LogEntry {
+                    device_id: device_id.clone(),
+                    seq: seq + i as i64,
+                    hlc,
+                    op,
+                    field: Some(field),
+                    old_value: Value::Null,
+                    new_value: value,
+                },
+            });
+        }
+    } else {
+        out.push(LoggedChange {
+            table,
+            row_id,
+            entry: LogEntry {
+                device_id,
+                seq,
+                hlc,
+                op,
+                field: r.get(6)?,
+                old_value: r.get(7)?,
+                new_value: r.get(8)?,
+            },
+        });
+    }
+    Ok(())
+}
+
+/// The [`LoggedChange`]s of the stored entries a query selects (it must
+/// select [`COLUMNS`]).
+fn query(conn: &Connection, sql: &str, args: impl rusqlite::Params) -> Result<Vec<LoggedChange>> {
+    let mut stmt = conn.prepare_cached(sql)?;
+    let mut rows = stmt.query(args)?;
+    let mut out = Vec::new();
+    while let Some(r) = rows.next()? {
+        expand(r, &mut out)?;
+    }
+    Ok(out)
+}
+
+/// The SQL of [`row_entries`]: the stored entries of one row, through the
+/// row index.
+const ROW_ENTRIES: &str = "SELECT device_id, seq, hlc, table_name, row_id, op, field, old_value, new_value \
+     FROM change_log WHERE table_name = ?1 AND row_id = ?2 ORDER BY device_id, seq";
 
 /// Every change-log entry of one row, in the order of (device, seq).
 pub fn row_entries(conn: &Connection, table: &str, row_id: &str) -> Result<Vec<LogEntry>> {
-    let columns = tables::get(table).map_or(1, |t| t.fields.len()) as i64;
-    let mut stmt = conn.prepare_cached(ROW_ENTRIES)?;
-    let rows = stmt.query_map(rusqlite::params![table, row_id, columns], |r| {
-        let op: String = r.get(3)?;
-        Ok(LogEntry {
-            device_id: r.get(0)?,
-            seq: r.get(1)?,
-            hlc: r.get(2)?,
-            op: Op::parse(&op).unwrap_or(Op::Update),
-            field: r.get(4)?,
-            old_value: r.get(5)?,
-            new_value: r.get(6)?,
-        })
-    })?;
-    let mut entries = rows.collect::<rusqlite::Result<Vec<_>>>()?;
-    entries.sort_by(|a, b| (&a.device_id, a.seq).cmp(&(&b.device_id, b.seq)));
-    entries.dedup_by(|a, b| a.device_id == b.device_id && a.seq == b.seq);
-    Ok(entries)
+    Ok(query(conn, ROW_ENTRIES, params![table, row_id])?
+        .into_iter()
+        .map(|c| c.entry)
+        .collect())
 }
 
 /// How SQLite plans [`row_entries`] (for the test that it uses the index).
 pub fn row_entries_plan(conn: &Connection) -> Result<Vec<String>> {
     let mut stmt = conn.prepare(&format!("EXPLAIN QUERY PLAN {ROW_ENTRIES}"))?;
-    let rows = stmt.query_map(
-        rusqlite::params![Value::Null, Value::Null, Value::Null],
-        |r| r.get::<_, String>(3),
-    )?;
+    let rows = stmt.query_map(params![Value::Null, Value::Null], |r| r.get::<_, String>(3))?;
     Ok(rows.collect::<rusqlite::Result<_>>()?)
+}
+
+/// The entries of `device` with seqs `first..=last`, in seq order. The range
+/// must not cut an insert (write transactions never share seqs).
+pub fn device_entries(
+    conn: &Connection,
+    device: &str,
+    first: i64,
+    last: i64,
+) -> Result<Vec<LoggedChange>> {
+    const SQL: &str = "SELECT device_id, seq, hlc, table_name, row_id, op, field, old_value, new_value \
+         FROM change_log WHERE device_id = ?1 AND seq BETWEEN ?2 AND ?3 ORDER BY seq";
+    query(conn, SQL, params![device, first, last])
+}
+
+/// The entry `seq` of `device`, also when it is a field of a packed insert.
+pub fn entry_at(conn: &Connection, device: &str, seq: i64) -> Result<Option<LoggedChange>> {
+    const SQL: &str = "SELECT device_id, seq, hlc, table_name, row_id, op, field, old_value, new_value \
+         FROM change_log WHERE device_id = ?1 AND seq <= ?2 ORDER BY seq DESC LIMIT 1";
+    Ok(query(conn, SQL, params![device, seq])?
+        .into_iter()
+        .find(|c| c.entry.seq == seq))
+}
+
+/// Every entry of the log, in the order of (device, seq).
+pub fn all_entries(conn: &Connection) -> Result<Vec<LoggedChange>> {
+    let sql = format!("SELECT {COLUMNS} FROM change_log ORDER BY device_id, seq");
+    query(conn, &sql, [])
+}
+
+/// Number of entries (fields of inserts counted one by one) of `device`
+/// after seq `after`, or of every device when `device` is `None`.
+pub fn count(conn: &Connection, device: Option<&str>, after: i64) -> Result<i64> {
+    let sql = format!(
+        "SELECT coalesce(sum({SPAN_SQL}), 0) FROM change_log \
+         WHERE (?1 IS NULL OR device_id = ?1) AND seq > ?2"
+    );
+    Ok(conn
+        .prepare_cached(&sql)?
+        .query_row(params![device, after], |r| r.get(0))?)
+}
+
+/// The highest seq of `device` in the log (the last field of a packed
+/// insert), or `None` when it has no entry.
+pub fn last_seq(conn: &Connection, device: &str) -> Result<Option<i64>> {
+    let sql = format!(
+        "SELECT seq + ({SPAN_SQL}) - 1 FROM change_log WHERE device_id = ?1 \
+         ORDER BY seq DESC LIMIT 1"
+    );
+    Ok(conn
+        .prepare_cached(&sql)?
+        .query_row([device], |r| r.get(0))
+        .optional()?)
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn an_insert_packs_its_fields_in_order_with_their_types() {
+        let id = Value::Text("0190-row".into());
+        let count = Value::Integer(3);
+        let cover = Value::Real(12.5);
+        let empty = Value::Text(String::new());
+        let text = pack_insert([
+            ("id", &id),
+            ("alive", &count),
+            ("cover", &cover),
+            ("label", &empty),
+        ]);
+        // common practice: JSON pairs of field and typed text.
+        assert_eq!(
+            text,
+            r#"[["id","t:0190-row"],["alive","i:3"],["cover","r:12.5"],["label","t:"]]"#
+        );
+        let back = unpack_insert(&text).unwrap();
+        assert_eq!(
+            back,
+            vec![
+                ("id".to_owned(), id),
+                ("alive".to_owned(), count),
+                ("cover".to_owned(), cover),
+                ("label".to_owned(), empty),
+            ]
+        );
+    }
+
+    #[test]
+    fn a_damaged_packed_insert_is_refused_with_the_reason() {
+        assert!(unpack_insert("[").unwrap_err().contains("pairs"));
+        assert!(unpack_insert("[]").unwrap_err().contains("no field"));
+        let bad = unpack_insert(r#"[["id","t:a"],["alive","i:x"]]"#).unwrap_err();
+        assert!(
+            bad.contains("alive") && bad.contains("whole number"),
+            "{bad}"
+        );
+    }
 }

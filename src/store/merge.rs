@@ -315,6 +315,8 @@ pub(crate) struct Settler {
     pending: BTreeMap<Group, Vec<String>>,
     /// Key values of each group (for the index lookup of live rows).
     group_values: HashMap<Group, Vec<Value>>,
+    /// Tables that have a pending row.
+    pending_tables: HashSet<String>,
     /// Groups to settle that have no pending row.
     extra: HashSet<Group>,
     /// Whether each table had hidden rows when this settling began (rows
@@ -339,6 +341,9 @@ impl Settler {
         k: &Knowledge,
     ) -> Result<()> {
         let sql = table_sql(schema);
+        if self.insert_new(conn, schema, sql, row_id, arrived)? {
+            return Ok(());
+        }
         let current: Option<Vec<Value>> = conn
             .prepare_cached(&sql.select_row)?
             .query_row([row_id], |r| read_values(r, schema.fields.len()))
@@ -401,6 +406,7 @@ impl Settler {
             .execute(rusqlite::params_from_iter(args.iter()))?;
         if let Some((group, values)) = hold {
             self.group_values.insert(group.clone(), values);
+            self.pending_tables.insert(group.table.clone());
             self.pending
                 .entry(group)
                 .or_default()
@@ -412,22 +418,68 @@ impl Settler {
         Ok(())
     }
 
+    /// The common case, taken without settling: `arrived` is one insert (each
+    /// field once) of a row this database does not hold, in a table where no
+    /// row waits for its key group and none is hidden. Its state is its
+    /// values (one entry per field: no conflict), stored live. Returns false,
+    /// having written nothing, when the row is not such a case: it exists
+    /// (the primary key refuses it) or a live row holds its unique key; the
+    /// full path then settles it.
+    fn insert_new(
+        &mut self,
+        conn: &Connection,
+        schema: &TableSchema,
+        sql: &TableSql,
+        row_id: &str,
+        arrived: &[Entry],
+    ) -> Result<bool> {
+        if arrived.iter().any(|e| e.op != Op::Insert)
+            || self.pending_tables.contains(&schema.name)
+            || (natural_key(schema).is_some() && self.has_hidden(conn, &schema.name)?)
+        {
+            return Ok(false);
+        }
+        let n = schema.fields.len();
+        let mut args = vec![Value::Null; n + 1];
+        let mut set = vec![false; n];
+        for e in arrived {
+            match e.field.as_deref().and_then(|f| schema.index(f)) {
+                Some(i) if !set[i] => {
+                    set[i] = true;
+                    args[i] = e.value.clone();
+                }
+                _ => return Ok(false),
+            }
+        }
+        args[0] = Value::Text(row_id.to_owned());
+        args[n] = Value::Integer(0);
+        match conn
+            .prepare_cached(&sql.insert_row)?
+            .execute(rusqlite::params_from_iter(args.iter()))
+        {
+            Ok(_) => Ok(true),
+            Err(e) if is_unique_violation(&e) || is_primary_key_violation(&e) => Ok(false),
+            Err(e) => Err(e.into()),
+        }
+    }
+
+    /// Whether a table had rows hidden as duplicates when this settling
+    /// began (asked of the database once per table).
+    fn has_hidden(&mut self, conn: &Connection, table: &str) -> Result<bool> {
+        if let Some(any) = self.tables_with_hidden.get(table) {
+            return Ok(*any);
+        }
+        let any: bool = conn
+            .prepare_cached("SELECT EXISTS (SELECT 1 FROM sync_hidden WHERE table_name = ?1)")?
+            .query_row([table], |r| r.get(0))?;
+        self.tables_with_hidden.insert(table.to_owned(), any);
+        Ok(any)
+    }
+
     /// Whether a row hidden as a duplicate has this key (asked of the
     /// database only for tables that have hidden rows at all).
     fn hidden_with_key(&mut self, conn: &Connection, group: &Group) -> Result<bool> {
-        let any = match self.tables_with_hidden.get(&group.table) {
-            Some(any) => *any,
-            None => {
-                let any: bool = conn
-                    .prepare_cached(
-                        "SELECT EXISTS (SELECT 1 FROM sync_hidden WHERE table_name = ?1)",
-                    )?
-                    .query_row([&group.table], |r| r.get(0))?;
-                self.tables_with_hidden.insert(group.table.clone(), any);
-                any
-            }
-        };
-        if !any {
+        if !self.has_hidden(conn, &group.table)? {
             return Ok(false);
         }
         Ok(conn
@@ -545,6 +597,14 @@ fn is_unique_violation(e: &rusqlite::Error) -> bool {
         e,
         rusqlite::Error::SqliteFailure(f, _)
             if f.extended_code == rusqlite::ffi::SQLITE_CONSTRAINT_UNIQUE
+    )
+}
+
+fn is_primary_key_violation(e: &rusqlite::Error) -> bool {
+    matches!(
+        e,
+        rusqlite::Error::SqliteFailure(f, _)
+            if f.extended_code == rusqlite::ffi::SQLITE_CONSTRAINT_PRIMARYKEY
     )
 }
 

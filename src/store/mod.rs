@@ -44,7 +44,8 @@ pub fn system_clock() -> Clock {
 /// What a change-log entry did.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Hash)]
 pub enum Op {
-    /// A new row: one entry per non-empty field.
+    /// A new row: one seq per field that has a value, stored as one entry
+    /// ([`log`]).
     Insert,
     /// A changed field.
     Update,
@@ -313,11 +314,9 @@ impl Store {
         rows(&self.conn, schema)
     }
 
-    /// Number of change-log entries.
+    /// Number of change-log entries (each field of an insert counted).
     pub fn change_count(&self) -> Result<i64> {
-        Ok(self
-            .conn
-            .query_row("SELECT count(*) FROM change_log", [], |r| r.get(0))?)
+        log::count(&self.conn, None, 0)
     }
 }
 

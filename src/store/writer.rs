@@ -152,18 +152,18 @@ impl<'a> Writer<'a> {
         self.tx
             .prepare_cached(&sql)?
             .execute(rusqlite::params_from_iter(values.iter()))?;
-        for (f, v) in schema.fields.iter().zip(&values) {
-            if !matches!(v, Value::Null) {
-                self.log(
-                    Op::Insert,
-                    &schema.name,
-                    &id,
-                    Some(&f.name),
-                    &Value::Null,
-                    v,
-                )?;
-            }
-        }
+        // One packed entry, one seq per field that has a value.
+        let set: Vec<(&str, &Value)> = schema
+            .fields
+            .iter()
+            .zip(&values)
+            .filter(|(_, v)| !matches!(v, Value::Null))
+            .map(|(f, v)| (f.name.as_str(), v))
+            .collect();
+        let span = set.len() as i64;
+        let packed = Value::Text(crate::store::log::pack_insert(set));
+        self.log(Op::Insert, &schema.name, &id, None, &Value::Null, &packed)?;
+        self.next_seq += span - 1;
         Ok(())
     }
 
@@ -527,10 +527,7 @@ impl<'a> Writer<'a> {
         new: &Value,
     ) -> Result<()> {
         self.tx
-            .prepare_cached(
-                "INSERT INTO change_log (device_id, seq, hlc, table_name, row_id, op, field, old_value, new_value) \
-                 VALUES (?1, ?2, ?3, ?4, ?5, ?6, ?7, ?8, ?9)",
-            )?
+            .prepare_cached(crate::store::log::INSERT_SQL)?
             .execute(params![
                 self.device_id,
                 self.next_seq,

@@ -16,12 +16,13 @@
 
 use std::collections::HashMap;
 
+use rusqlite::types::Value;
 use rusqlite::{OptionalExtension, TransactionBehavior, params};
 
 use super::SyncOptions;
 use super::changeset::ChangeSet;
 use crate::store::merge::{Entry, Knowledge, Settler};
-use crate::store::{Hlc, Store};
+use crate::store::{Hlc, Op, Store, log};
 use crate::tables;
 use crate::{Error, Result};
 
@@ -202,11 +203,32 @@ fn apply_within(
         }
     }
     {
-        let mut insert = tx.prepare_cached(
-            "INSERT INTO change_log (device_id, seq, hlc, table_name, row_id, op, field, old_value, new_value) \
-             VALUES (?1, ?2, ?3, ?4, ?5, ?6, ?7, ?8, ?9)",
-        )?;
-        for c in &cs.changes {
+        // An insert's run of entries (its `id` entry first, then the other
+        // fields, consecutive: the change-set reader refuses anything else)
+        // is stored as one packed entry.
+        let mut insert = tx.prepare_cached(log::INSERT_SQL)?;
+        let mut rest = cs.changes.as_slice();
+        while let Some(c) = rest.first() {
+            let run = if c.op == Op::Insert {
+                1 + rest[1..]
+                    .iter()
+                    .take_while(|n| {
+                        n.op == Op::Insert
+                            && n.row_id == c.row_id
+                            && n.field.as_deref() != Some("id")
+                    })
+                    .count()
+            } else {
+                1
+            };
+            let (field, value) = if c.op == Op::Insert {
+                let fields = rest[..run]
+                    .iter()
+                    .map(|e| (e.field.as_deref().unwrap_or_default(), &e.new_value));
+                (None, Value::Text(log::pack_insert(fields)))
+            } else {
+                (c.field.as_deref(), c.new_value.clone())
+            };
             insert.execute(params![
                 cs.device_id,
                 c.seq,
@@ -214,10 +236,11 @@ fn apply_within(
                 c.table,
                 c.row_id,
                 c.op.as_str(),
-                c.field,
+                field,
                 c.old_value,
-                c.new_value
+                value
             ])?;
+            rest = &rest[run..];
         }
     }
     for (device, seq) in &cs.seen {

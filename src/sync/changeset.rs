@@ -264,7 +264,7 @@ pub fn decode(bytes: &[u8]) -> Result<ChangeSet, String> {
 
 /// An insert is a run of entries: the row's `id` entry, then at most one
 /// entry per other field of the same row, with nothing between them (how the
-/// writer logs it; the change log's row index relies on it, see
+/// writer logs it; the change log stores each run as one packed entry, see
 /// [`crate::store::log`]). `run` holds the field positions of the run `last`
 /// belongs to.
 fn continue_run(run: &mut Vec<usize>, last: Option<&Change>, c: &Change) -> Result<(), String> {

@@ -21,7 +21,7 @@
 //! [`Version::is_local`].
 
 use rusqlite::types::Value;
-use rusqlite::{Connection, OptionalExtension, params};
+use rusqlite::{Connection, OptionalExtension};
 
 use crate::store::log::{self, LogEntry};
 use crate::store::{Op, Store};
@@ -301,21 +301,9 @@ fn version(
     device: &str,
     seq: i64,
 ) -> Result<Version> {
-    let (hlc, op, new_value, row_id): (i64, String, Value, String) = conn.query_row(
-        "SELECT hlc, op, new_value, row_id FROM change_log WHERE device_id = ?1 AND seq = ?2",
-        params![device, seq],
-        |r| Ok((r.get(0)?, r.get(1)?, r.get(2)?, r.get(3)?)),
-    )?;
-    let entry = LogEntry {
-        device_id: device.to_owned(),
-        seq,
-        hlc,
-        op: Op::parse(&op).unwrap_or(Op::Update),
-        field: None,
-        old_value: Value::Null,
-        new_value,
-    };
-    version_of(conn, me, local_name, &row_id, &entry)
+    let change = log::entry_at(conn, device, seq)?
+        .ok_or_else(|| Error::State(format!("the change log holds no entry {device}/{seq}")))?;
+    version_of(conn, me, local_name, &change.row_id, &change.entry)
 }
 
 /// The version an entry of `row_id` already read makes.

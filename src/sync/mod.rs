@@ -47,7 +47,7 @@ pub use conflicts::{Conflict, ConflictChoice, ConflictKind, Version, conflicts, 
 pub use target::{check_target, save_target, saved_target};
 
 use crate::disk::{Disk, OsDisk};
-use crate::store::{Op, Store};
+use crate::store::{Store, log};
 use crate::{Error, Result};
 use changeset::{Change, ChangeSet};
 
@@ -304,11 +304,7 @@ fn probe_target(target: &Path, disk: &dyn Disk) -> TargetStatus {
 pub fn pending_changes(store: &Store) -> Result<i64> {
     let conn = store.conn();
     let written = last_written(conn)?;
-    Ok(conn.query_row(
-        "SELECT count(*) FROM change_log WHERE device_id = ?1 AND seq > ?2",
-        params![store.device_id(), written],
-        |r| r.get(0),
-    )?)
+    log::count(conn, Some(store.device_id()), written)
 }
 
 /// A finished sync run.
@@ -553,24 +549,19 @@ fn written_files(conn: &Connection) -> Result<Vec<Written>> {
 
 /// This device's entries `first..=last` from the change log.
 fn own_changes(conn: &Connection, me: &str, first: i64, last: i64) -> Result<Vec<Change>> {
-    let mut stmt = conn.prepare_cached(
-        "SELECT seq, hlc, table_name, row_id, op, field, old_value, new_value FROM change_log \
-         WHERE device_id = ?1 AND seq BETWEEN ?2 AND ?3 ORDER BY seq",
-    )?;
-    let rows = stmt.query_map(params![me, first, last], |r| {
-        let op: String = r.get(4)?;
-        Ok(Change {
-            seq: r.get(0)?,
-            hlc: r.get(1)?,
-            table: r.get(2)?,
-            row_id: r.get(3)?,
-            op: Op::parse(&op).unwrap_or(Op::Update),
-            field: r.get(5)?,
-            old_value: r.get(6)?,
-            new_value: r.get(7)?,
+    Ok(log::device_entries(conn, me, first, last)?
+        .into_iter()
+        .map(|c| Change {
+            seq: c.entry.seq,
+            hlc: c.entry.hlc,
+            table: c.table,
+            row_id: c.row_id,
+            op: c.entry.op,
+            field: c.entry.field,
+            old_value: c.entry.old_value,
+            new_value: c.entry.new_value,
         })
-    })?;
-    Ok(rows.collect::<rusqlite::Result<_>>()?)
+        .collect())
 }
 
 /// What this device had applied of other devices when it made entry `seq`.
