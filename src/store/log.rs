@@ -61,13 +61,43 @@ pub const INSERT_SQL: &str = "INSERT INTO change_log \
 
 /// The packed form of an insert's fields: `[field, value]` pairs, in the
 /// order given (the writer gives the fields that have a value, in column
-/// order).
+/// order). Written straight into one buffer: every row a merge stores is
+/// packed once.
 pub fn pack_insert<'a>(fields: impl IntoIterator<Item = (&'a str, &'a Value)>) -> String {
-    let pairs: Vec<[String; 2]> = fields
-        .into_iter()
-        .map(|(f, v)| [f.to_owned(), typed_text::encode(v)])
-        .collect();
-    serde_json::to_string(&pairs).unwrap_or_else(|_| "[]".to_owned())
+    let mut out: Vec<u8> = Vec::with_capacity(256);
+    out.push(b'[');
+    for (n, (field, value)) in fields.into_iter().enumerate() {
+        if n > 0 {
+            out.push(b',');
+        }
+        out.push(b'[');
+        json_string(&mut out, "", field);
+        out.push(b',');
+        match value {
+            // typed_text's forms: numbers need no escaping
+            Value::Integer(_) | Value::Real(_) | Value::Null => {
+                out.push(b'"');
+                out.extend_from_slice(typed_text::encode(value).as_bytes());
+                out.push(b'"');
+            }
+            Value::Text(t) => json_string(&mut out, "t:", t),
+            Value::Blob(_) => json_string(&mut out, "", &typed_text::encode(value)),
+        }
+        out.push(b']');
+    }
+    out.push(b']');
+    // Only whole UTF-8 strings and ASCII were written.
+    String::from_utf8(out).unwrap_or_default()
+}
+
+/// Append `prefix` + `text` as one JSON string (the prefix needs no escaping).
+fn json_string(out: &mut Vec<u8>, prefix: &str, text: &str) {
+    let start = out.len();
+    // serde_json writes the quoted, escaped text; the prefix goes after the
+    // opening quote.
+    if serde_json::to_writer(&mut *out, text).is_ok() && !prefix.is_empty() {
+        out.splice(start + 1..start + 1, prefix.bytes());
+    }
 }
 
 /// The fields of a packed insert, in their order. The error says what is
@@ -207,13 +237,24 @@ pub fn all_entries(conn: &Connection) -> Result<Vec<LoggedChange>> {
 /// Number of entries (fields of inserts counted one by one) of `device`
 /// after seq `after`, or of every device when `device` is `None`.
 pub fn count(conn: &Connection, device: Option<&str>, after: i64) -> Result<i64> {
-    let sql = format!(
-        "SELECT coalesce(sum({SPAN_SQL}), 0) FROM change_log \
-         WHERE (?1 IS NULL OR device_id = ?1) AND seq > ?2"
-    );
-    Ok(conn
-        .prepare_cached(&sql)?
-        .query_row(params![device, after], |r| r.get(0))?)
+    let sql = count_sql(device.is_some());
+    let mut stmt = conn.prepare_cached(&sql)?;
+    Ok(match device {
+        Some(d) => stmt.query_row(params![d, after], |r| r.get(0))?,
+        None => stmt.query_row([after], |r| r.get(0))?,
+    })
+}
+
+/// The SQL of [`count`]: two statements, as with `?1 IS NULL OR
+/// device_id = ?1` SQLite would read the whole log instead of the device's
+/// entries.
+fn count_sql(of_device: bool) -> String {
+    let filter = if of_device {
+        "device_id = ?1 AND seq > ?2"
+    } else {
+        "seq > ?1"
+    };
+    format!("SELECT coalesce(sum({SPAN_SQL}), 0) FROM change_log WHERE {filter}")
 }
 
 /// The highest seq of `device` in the log (the last field of a packed
@@ -239,16 +280,18 @@ mod tests {
         let count = Value::Integer(3);
         let cover = Value::Real(12.5);
         let empty = Value::Text(String::new());
+        let quoted = Value::Text("a \"b\", \\ c\n\u{e9}".into());
         let text = pack_insert([
             ("id", &id),
             ("alive", &count),
             ("cover", &cover),
             ("label", &empty),
+            ("notes", &quoted),
         ]);
         // common practice: JSON pairs of field and typed text.
         assert_eq!(
             text,
-            r#"[["id","t:0190-row"],["alive","i:3"],["cover","r:12.5"],["label","t:"]]"#
+            r#"[["id","t:0190-row"],["alive","i:3"],["cover","r:12.5"],["label","t:"],["notes","t:a \"b\", \\ c\né"]]"#
         );
         let back = unpack_insert(&text).unwrap();
         assert_eq!(
@@ -258,8 +301,26 @@ mod tests {
                 ("alive".to_owned(), count),
                 ("cover".to_owned(), cover),
                 ("label".to_owned(), empty),
+                ("notes".to_owned(), quoted),
             ]
         );
+    }
+
+    /// The count of a device's unsent entries is read at every sync and
+    /// status call: it must not read the whole log.
+    #[test]
+    fn a_devices_count_reads_only_its_entries() {
+        let dir = tempfile::tempdir().expect("temp dir");
+        let store = crate::Store::open(dir.path().join("count.db")).expect("open");
+        let plan: Vec<String> = store
+            .conn()
+            .prepare(&format!("EXPLAIN QUERY PLAN {}", count_sql(true)))
+            .expect("valid SQL")
+            .query_map(params!["d", 0], |r| r.get(3))
+            .expect("plan")
+            .collect::<rusqlite::Result<_>>()
+            .expect("plan rows");
+        assert!(plan.iter().all(|p| p.starts_with("SEARCH")), "{plan:?}");
     }
 
     #[test]

@@ -315,8 +315,6 @@ pub(crate) struct Settler {
     pending: BTreeMap<Group, Vec<String>>,
     /// Key values of each group (for the index lookup of live rows).
     group_values: HashMap<Group, Vec<Value>>,
-    /// Tables that have a pending row.
-    pending_tables: HashSet<String>,
     /// Groups to settle that have no pending row.
     extra: HashSet<Group>,
     /// Whether each table had hidden rows when this settling began (rows
@@ -341,9 +339,6 @@ impl Settler {
         k: &Knowledge,
     ) -> Result<()> {
         let sql = table_sql(schema);
-        if self.insert_new(conn, schema, sql, row_id, arrived)? {
-            return Ok(());
-        }
         let current: Option<Vec<Value>> = conn
             .prepare_cached(&sql.select_row)?
             .query_row([row_id], |r| read_values(r, schema.fields.len()))
@@ -406,7 +401,6 @@ impl Settler {
             .execute(rusqlite::params_from_iter(args.iter()))?;
         if let Some((group, values)) = hold {
             self.group_values.insert(group.clone(), values);
-            self.pending_tables.insert(group.table.clone());
             self.pending
                 .entry(group)
                 .or_default()
@@ -418,35 +412,34 @@ impl Settler {
         Ok(())
     }
 
-    /// The common case, taken without settling: `arrived` is one insert (each
-    /// field once) of a row this database does not hold, in a table where no
-    /// row waits for its key group and none is hidden. Its state is its
-    /// values (one entry per field: no conflict), stored live. Returns false,
-    /// having written nothing, when the row is not such a case: it exists
-    /// (the primary key refuses it) or a live row holds its unique key; the
-    /// full path then settles it.
-    fn insert_new(
-        &mut self,
+    /// The common case, stored without settling: the entries that arrived
+    /// for a row (op, field, value) are one insert (each field once) of a
+    /// row this database does not hold. Its state is its values (one entry
+    /// per field: no conflict), stored live. Returns false, having written
+    /// nothing, when the row is not such a case: it exists (the primary key
+    /// refuses it) or a live row holds its unique key; then it must be
+    /// settled ([`Settler::settle`]).
+    ///
+    /// Rows held back for their key group or hidden as duplicates hold no
+    /// key in the unique index, so a new row can go in live beside them:
+    /// when their group is settled, the live rows with its key are counted
+    /// in ([`settle_group`]), so the result is the one holding it back too
+    /// would give.
+    pub fn insert_new<'v>(
+        &self,
         conn: &Connection,
         schema: &TableSchema,
-        sql: &TableSql,
         row_id: &str,
-        arrived: &[Entry],
+        arrived: impl Iterator<Item = (Op, Option<&'v str>, &'v Value)>,
     ) -> Result<bool> {
-        if arrived.iter().any(|e| e.op != Op::Insert)
-            || self.pending_tables.contains(&schema.name)
-            || (natural_key(schema).is_some() && self.has_hidden(conn, &schema.name)?)
-        {
-            return Ok(false);
-        }
         let n = schema.fields.len();
         let mut args = vec![Value::Null; n + 1];
         let mut set = vec![false; n];
-        for e in arrived {
-            match e.field.as_deref().and_then(|f| schema.index(f)) {
-                Some(i) if !set[i] => {
+        for (op, field, value) in arrived {
+            match field.and_then(|f| schema.index(f)) {
+                Some(i) if op == Op::Insert && !set[i] => {
                     set[i] = true;
-                    args[i] = e.value.clone();
+                    args[i] = value.clone();
                 }
                 _ => return Ok(false),
             }
@@ -454,7 +447,7 @@ impl Settler {
         args[0] = Value::Text(row_id.to_owned());
         args[n] = Value::Integer(0);
         match conn
-            .prepare_cached(&sql.insert_row)?
+            .prepare_cached(&table_sql(schema).insert_row)?
             .execute(rusqlite::params_from_iter(args.iter()))
         {
             Ok(_) => Ok(true),

@@ -256,30 +256,46 @@ fn apply_within(
     // parent leaves a deferred foreign-key violation outstanding, and while
     // one is, SQLite looks for children at every parent row stored, which
     // made a season's merge more than ten times slower.)
-    let mut rows: Vec<(&str, &str, Vec<Entry>)> = Vec::new();
+    let mut rows: Vec<(&str, &str, Vec<usize>)> = Vec::new();
     let mut index: HashMap<(&str, &str), usize> = HashMap::new();
-    for c in &cs.changes {
-        let i = *index
-            .entry((c.table.as_str(), c.row_id.as_str()))
-            .or_insert_with(|| {
-                rows.push((c.table.as_str(), c.row_id.as_str(), Vec::new()));
+    for (n, c) in cs.changes.iter().enumerate() {
+        let key = (c.table.as_str(), c.row_id.as_str());
+        let i = match rows.last() {
+            // the entries of a row mostly come together
+            Some((t, r, _)) if (*t, *r) == key => rows.len() - 1,
+            _ => *index.entry(key).or_insert_with(|| {
+                rows.push((key.0, key.1, Vec::new()));
                 rows.len() - 1
-            });
-        rows[i].2.push(Entry {
-            device: cs.device_id.clone(),
-            seq: c.seq,
-            hlc: c.hlc,
-            op: c.op,
-            field: c.field.clone(),
-            value: c.new_value.clone(),
-        });
+            }),
+        };
+        rows[i].2.push(n);
     }
     let mut settler = Settler::default();
-    for (table, row_id, arrived) in &rows {
+    for (table, row_id, at) in &rows {
         let schema = tables::get(table)
             .ok_or_else(|| refuse(format!("table_name: {table:?} is not a table")))?;
+        let arrived = at.iter().map(|n| &cs.changes[*n]);
+        let fields = arrived
+            .clone()
+            .map(|c| (c.op, c.field.as_deref(), &c.new_value));
+        let stored = settler
+            .insert_new(tx, schema, row_id, fields)
+            .map_err(|e| refuse(format!("{table} {row_id}: {e}")))?;
+        if stored {
+            continue;
+        }
+        let entries: Vec<Entry> = arrived
+            .map(|c| Entry {
+                device: cs.device_id.clone(),
+                seq: c.seq,
+                hlc: c.hlc,
+                op: c.op,
+                field: c.field.clone(),
+                value: c.new_value.clone(),
+            })
+            .collect();
         settler
-            .settle(tx, schema, row_id, arrived, &knowledge)
+            .settle(tx, schema, row_id, &entries, &knowledge)
             .map_err(|e| refuse(format!("{table} {row_id}: {e}")))?;
     }
     settler
