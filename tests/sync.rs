@@ -877,7 +877,7 @@ fn a_reused_seq_with_another_hash_is_refused_naming_the_file() {
     let cs = fieldcage::sync::changeset::decode(&case.bytes).unwrap();
     let mut changes = cs.changes.clone();
     for c in &mut changes {
-        if c.field.as_deref() == Some("alive") {
+        if c.field == Some("alive") {
             c.new_value = Value::Integer(99);
         }
     }
@@ -1227,7 +1227,7 @@ fn a_change_set_refused_at_commit_leaves_the_others_of_its_batch_applied() {
     // that exists nowhere: only the commit's foreign-key check can tell.
     let stranger = "01a20000-0000-7000-8000-000000000001";
     let row = crate::util::fixed_id(300).to_string();
-    let value = |field: &str, v: Value| (field.to_owned(), v);
+    let value = |field: &'static str, v: Value| (field, v);
     let fields = [
         value("id", Value::Text(row.clone())),
         value(
@@ -1243,7 +1243,7 @@ fn a_change_set_refused_at_commit_leaves_the_others_of_its_batch_applied() {
         .map(|(i, (field, v))| Change {
             seq: i as i64 + 1,
             hlc: fieldcage::store::Hlc::new(SEASON_MILLIS, 0).0,
-            table: "census".into(),
+            table: "census",
             row_id: row.clone(),
             op: fieldcage::store::Op::Insert,
             field: Some(field),

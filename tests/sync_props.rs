@@ -311,10 +311,10 @@ pub fn entries_of(cs: &ChangeSet) -> Vec<Entry> {
             device: cs.device_id.clone(),
             seq: c.seq,
             hlc: c.hlc,
-            table: c.table.clone(),
+            table: c.table.to_owned(),
             row: c.row_id.clone(),
             op: c.op,
-            field: c.field.clone(),
+            field: c.field.map(str::to_owned),
             old: c.old_value.clone(),
             new: c.new_value.clone(),
         })

@@ -433,22 +433,25 @@ impl Settler {
         arrived: impl Iterator<Item = (Op, Option<&'v str>, &'v Value)>,
     ) -> Result<bool> {
         let n = schema.fields.len();
-        let mut args = vec![Value::Null; n + 1];
+        // The values are bound where they lie (no copies): the columns, then
+        // `deleted` = 0.
+        let live = 0_i64;
+        let mut args: Vec<&dyn rusqlite::ToSql> = vec![&rusqlite::types::Null; n + 1];
         let mut set = vec![false; n];
         for (op, field, value) in arrived {
             match field.and_then(|f| schema.index(f)) {
                 Some(i) if op == Op::Insert && !set[i] => {
                     set[i] = true;
-                    args[i] = value.clone();
+                    args[i] = value;
                 }
                 _ => return Ok(false),
             }
         }
-        args[0] = Value::Text(row_id.to_owned());
-        args[n] = Value::Integer(0);
+        args[0] = &row_id;
+        args[n] = &live;
         match conn
             .prepare_cached(&table_sql(schema).insert_row)?
-            .execute(rusqlite::params_from_iter(args.iter()))
+            .execute(&*args)
         {
             Ok(_) => Ok(true),
             Err(e) if is_unique_violation(&e) || is_primary_key_violation(&e) => Ok(false),

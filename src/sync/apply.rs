@@ -213,9 +213,7 @@ fn apply_within(
                 1 + rest[1..]
                     .iter()
                     .take_while(|n| {
-                        n.op == Op::Insert
-                            && n.row_id == c.row_id
-                            && n.field.as_deref() != Some("id")
+                        n.op == Op::Insert && n.row_id == c.row_id && n.field != Some("id")
                     })
                     .count()
             } else {
@@ -224,10 +222,10 @@ fn apply_within(
             let (field, value) = if c.op == Op::Insert {
                 let fields = rest[..run]
                     .iter()
-                    .map(|e| (e.field.as_deref().unwrap_or_default(), &e.new_value));
+                    .map(|e| (e.field.unwrap_or_default(), &e.new_value));
                 (None, Value::Text(log::pack_insert(fields)))
             } else {
-                (c.field.as_deref(), c.new_value.clone())
+                (c.field, c.new_value.clone())
             };
             insert.execute(params![
                 cs.device_id,
@@ -259,7 +257,7 @@ fn apply_within(
     let mut rows: Vec<(&str, &str, Vec<usize>)> = Vec::new();
     let mut index: HashMap<(&str, &str), usize> = HashMap::new();
     for (n, c) in cs.changes.iter().enumerate() {
-        let key = (c.table.as_str(), c.row_id.as_str());
+        let key = (c.table, c.row_id.as_str());
         let i = match rows.last() {
             // the entries of a row mostly come together
             Some((t, r, _)) if (*t, *r) == key => rows.len() - 1,
@@ -275,9 +273,7 @@ fn apply_within(
         let schema = tables::get(table)
             .ok_or_else(|| refuse(format!("table_name: {table:?} is not a table")))?;
         let arrived = at.iter().map(|n| &cs.changes[*n]);
-        let fields = arrived
-            .clone()
-            .map(|c| (c.op, c.field.as_deref(), &c.new_value));
+        let fields = arrived.clone().map(|c| (c.op, c.field, &c.new_value));
         let stored = settler
             .insert_new(tx, schema, row_id, fields)
             .map_err(|e| refuse(format!("{table} {row_id}: {e}")))?;
@@ -290,7 +286,7 @@ fn apply_within(
                 seq: c.seq,
                 hlc: c.hlc,
                 op: c.op,
-                field: c.field.clone(),
+                field: c.field.map(str::to_owned),
                 value: c.new_value.clone(),
             })
             .collect();

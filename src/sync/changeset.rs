@@ -67,14 +67,14 @@ pub struct Change {
     pub seq: i64,
     /// Hybrid-logical-clock timestamp.
     pub hlc: i64,
-    /// Data table.
-    pub table: String,
+    /// Data table (its name in [`tables::all`]).
+    pub table: &'static str,
     /// Row id.
     pub row_id: String,
     /// What it did.
     pub op: Op,
-    /// Column (none for delete and restore).
-    pub field: Option<String>,
+    /// Column (none for delete and restore; its name in the table's schema).
+    pub field: Option<&'static str>,
     /// Value before.
     pub old_value: Value,
     /// Value after.
@@ -164,10 +164,10 @@ pub fn encode(
         w.write_record([
             c.seq.to_string(),
             c.hlc.to_string(),
-            c.table.clone(),
+            c.table.to_owned(),
             c.row_id.clone(),
             c.op.as_str().to_owned(),
-            c.field.clone().unwrap_or_default(),
+            c.field.unwrap_or_default().to_owned(),
             typed_text::encode(&c.old_value),
             typed_text::encode(&c.new_value),
         ])
@@ -268,13 +268,13 @@ pub fn decode(bytes: &[u8]) -> Result<ChangeSet, String> {
 /// [`crate::store::log`]). `run` holds the field positions of the run `last`
 /// belongs to.
 fn continue_run(run: &mut Vec<usize>, last: Option<&Change>, c: &Change) -> Result<(), String> {
-    let field = c.field.as_deref().unwrap_or_default();
+    let field = c.field.unwrap_or_default();
     if c.op != Op::Insert {
         run.clear();
         return Ok(());
     }
     // parse_row has checked that the table and the field exist.
-    let position = tables::get(&c.table)
+    let position = tables::get(c.table)
         .and_then(|t| t.index(field))
         .unwrap_or_default();
     if field == "id" {
@@ -445,6 +445,7 @@ fn parse_row(record: &csv::StringRecord, expected_seq: i64) -> Result<Change, St
         typed_text::decode(cell(6)).map_err(|e| format!("old_value: {:?} {e}", cell(6)))?;
     let new_value =
         typed_text::decode(cell(7)).map_err(|e| format!("new_value: {:?} {e}", cell(7)))?;
+    let mut column = None;
     if op.is_existence() {
         if !field.is_empty() || old_value != Value::Null || new_value != Value::Null {
             return Err(format!("a {} has no field and no values", op.as_str()));
@@ -453,6 +454,7 @@ fn parse_row(record: &csv::StringRecord, expected_seq: i64) -> Result<Change, St
         let f = schema
             .field(field)
             .ok_or_else(|| format!("field: {field:?} is not a column of {table}"))?;
+        column = Some(f.name.as_str());
         if op == Op::Update && field == "id" {
             return Err("field: an update cannot change the id".to_owned());
         }
@@ -472,10 +474,10 @@ fn parse_row(record: &csv::StringRecord, expected_seq: i64) -> Result<Change, St
     Ok(Change {
         seq,
         hlc,
-        table: table.to_owned(),
+        table: schema.name.as_str(),
         row_id: row_id.to_owned(),
         op,
-        field: (!field.is_empty()).then(|| field.to_owned()),
+        field: column,
         old_value,
         new_value,
     })
@@ -517,17 +519,17 @@ mod tests {
             Change {
                 seq: 4,
                 hlc: 100 << 16,
-                table: "census".into(),
+                table: "census",
                 row_id: id.into(),
                 op: Op::Update,
-                field: Some("notes".into()),
+                field: Some("notes"),
                 old_value: Value::Null,
                 new_value: Value::Text("a, \"quoted\"\nline".into()),
             },
             Change {
                 seq: 5,
                 hlc: 101 << 16,
-                table: "census".into(),
+                table: "census",
                 row_id: id.into(),
                 op: Op::Delete,
                 field: None,
@@ -546,17 +548,17 @@ mod tests {
     }
 
     /// An insert of one census row as the writer logs it, from seq 1.
-    fn insert_run(fields: &[(&str, Value)]) -> Vec<Change> {
+    fn insert_run(fields: &[(&'static str, Value)]) -> Vec<Change> {
         fields
             .iter()
             .enumerate()
             .map(|(i, (field, value))| Change {
                 seq: i as i64 + 1,
                 hlc: 100 << 16,
-                table: "census".into(),
+                table: "census",
                 row_id: "0190a1b2-c3d4-7e5f-8a6b-7c8d9e0f1a2b".into(),
                 op: Op::Insert,
-                field: Some((*field).into()),
+                field: Some(field),
                 old_value: Value::Null,
                 new_value: value.clone(),
             })
@@ -567,7 +569,7 @@ mod tests {
     fn an_insert_is_read_only_as_its_id_entry_then_its_other_fields() {
         let id = Value::Text("0190a1b2-c3d4-7e5f-8a6b-7c8d9e0f1a2b".into());
         let visit = Value::Text("0190a1b2-c3d4-7e5f-8a6b-000000000010".into());
-        let decode_run = |fields: &[(&str, Value)]| {
+        let decode_run = |fields: &[(&'static str, Value)]| {
             let (bytes, _) = encode(
                 "0190a1b2-c3d4-7e5f-8a6b-0000000000ff",
                 "t",

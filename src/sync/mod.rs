@@ -48,6 +48,7 @@ pub use target::{check_target, save_target, saved_target};
 
 use crate::disk::{Disk, OsDisk};
 use crate::store::{Store, log};
+use crate::tables;
 use crate::{Error, Result};
 use changeset::{Change, ChangeSet};
 
@@ -549,19 +550,34 @@ fn written_files(conn: &Connection) -> Result<Vec<Written>> {
 
 /// This device's entries `first..=last` from the change log.
 fn own_changes(conn: &Connection, me: &str, first: i64, last: i64) -> Result<Vec<Change>> {
-    Ok(log::device_entries(conn, me, first, last)?
+    log::device_entries(conn, me, first, last)?
         .into_iter()
-        .map(|c| Change {
-            seq: c.entry.seq,
-            hlc: c.entry.hlc,
-            table: c.table,
-            row_id: c.row_id,
-            op: c.entry.op,
-            field: c.entry.field,
-            old_value: c.entry.old_value,
-            new_value: c.entry.new_value,
+        .map(|c| {
+            let unknown = || {
+                Error::State(format!(
+                    "change log entry {me}/{}: {}.{} is not a column of this build's tables",
+                    c.entry.seq,
+                    c.table,
+                    c.entry.field.as_deref().unwrap_or_default()
+                ))
+            };
+            let schema = tables::get(&c.table).ok_or_else(unknown)?;
+            let field = match &c.entry.field {
+                Some(f) => Some(schema.field(f).ok_or_else(unknown)?.name.as_str()),
+                None => None,
+            };
+            Ok(Change {
+                seq: c.entry.seq,
+                hlc: c.entry.hlc,
+                table: schema.name.as_str(),
+                row_id: c.row_id,
+                op: c.entry.op,
+                field,
+                old_value: c.entry.old_value,
+                new_value: c.entry.new_value,
+            })
         })
-        .collect())
+        .collect()
 }
 
 /// What this device had applied of other devices when it made entry `seq`.
