@@ -284,6 +284,52 @@ fn key_from_text(text: &str) -> Option<Vec<Value>> {
     cells.iter().map(|c| typed_text::decode(c).ok()).collect()
 }
 
+/// The common case, stored without settling: the entries that arrived
+/// for a row (op, field, value) are one insert (each field once) of a
+/// row this database does not hold. Its state is its values (one entry
+/// per field: no conflict), stored live. Returns false, having written
+/// nothing, when the row is not such a case: it exists (the primary key
+/// refuses it) or a live row holds its unique key; then it must be
+/// settled ([`Settler::settle`]).
+///
+/// Rows held back for their key group or hidden as duplicates hold no
+/// key in the unique index, so a new row can go in live beside them:
+/// when their group is settled, the live rows with its key are counted
+/// in ([`settle_group`]), so the result is the one holding it back too
+/// would give.
+pub(crate) fn insert_new<'v>(
+    conn: &Connection,
+    schema: &TableSchema,
+    row_id: &str,
+    arrived: impl Iterator<Item = (Op, Option<&'v str>, &'v Value)>,
+) -> Result<bool> {
+    let n = schema.fields.len();
+    // The values are bound where they lie (no copies): the columns, then
+    // `deleted` = 0.
+    let live = 0_i64;
+    let mut args: Vec<&dyn rusqlite::ToSql> = vec![&rusqlite::types::Null; n + 1];
+    let mut set = vec![false; n];
+    for (op, field, value) in arrived {
+        match field.and_then(|f| schema.index(f)) {
+            Some(i) if op == Op::Insert && !set[i] => {
+                set[i] = true;
+                args[i] = value;
+            }
+            _ => return Ok(false),
+        }
+    }
+    args[0] = &row_id;
+    args[n] = &live;
+    match conn
+        .prepare_cached(&table_sql(schema).insert_row)?
+        .execute(&*args)
+    {
+        Ok(_) => Ok(true),
+        Err(e) if is_unique_violation(&e) || is_primary_key_violation(&e) => Ok(false),
+        Err(e) => Err(e.into()),
+    }
+}
+
 /// Whether a row is hidden as a duplicate.
 pub(crate) fn is_hidden(conn: &Connection, table: &str, row_id: &str) -> Result<bool> {
     Ok(conn
@@ -410,53 +456,6 @@ impl Settler {
             write_conflicts(conn, &schema.name, row_id, &state.conflicts)?;
         }
         Ok(())
-    }
-
-    /// The common case, stored without settling: the entries that arrived
-    /// for a row (op, field, value) are one insert (each field once) of a
-    /// row this database does not hold. Its state is its values (one entry
-    /// per field: no conflict), stored live. Returns false, having written
-    /// nothing, when the row is not such a case: it exists (the primary key
-    /// refuses it) or a live row holds its unique key; then it must be
-    /// settled ([`Settler::settle`]).
-    ///
-    /// Rows held back for their key group or hidden as duplicates hold no
-    /// key in the unique index, so a new row can go in live beside them:
-    /// when their group is settled, the live rows with its key are counted
-    /// in ([`settle_group`]), so the result is the one holding it back too
-    /// would give.
-    pub fn insert_new<'v>(
-        &self,
-        conn: &Connection,
-        schema: &TableSchema,
-        row_id: &str,
-        arrived: impl Iterator<Item = (Op, Option<&'v str>, &'v Value)>,
-    ) -> Result<bool> {
-        let n = schema.fields.len();
-        // The values are bound where they lie (no copies): the columns, then
-        // `deleted` = 0.
-        let live = 0_i64;
-        let mut args: Vec<&dyn rusqlite::ToSql> = vec![&rusqlite::types::Null; n + 1];
-        let mut set = vec![false; n];
-        for (op, field, value) in arrived {
-            match field.and_then(|f| schema.index(f)) {
-                Some(i) if op == Op::Insert && !set[i] => {
-                    set[i] = true;
-                    args[i] = value;
-                }
-                _ => return Ok(false),
-            }
-        }
-        args[0] = &row_id;
-        args[n] = &live;
-        match conn
-            .prepare_cached(&table_sql(schema).insert_row)?
-            .execute(&*args)
-        {
-            Ok(_) => Ok(true),
-            Err(e) if is_unique_violation(&e) || is_primary_key_violation(&e) => Ok(false),
-            Err(e) => Err(e.into()),
-        }
     }
 
     /// Whether a table had rows hidden as duplicates when this settling

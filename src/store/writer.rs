@@ -152,7 +152,8 @@ impl<'a> Writer<'a> {
         self.tx
             .prepare_cached(&sql)?
             .execute(rusqlite::params_from_iter(values.iter()))?;
-        // One packed entry, one seq per field that has a value.
+        // One packed entry, one seq per field that has a value (the id
+        // always has one).
         let set: Vec<(&str, &Value)> = schema
             .fields
             .iter()

@@ -21,7 +21,7 @@ use rusqlite::{OptionalExtension, TransactionBehavior, params};
 
 use super::SyncOptions;
 use super::changeset::ChangeSet;
-use crate::store::merge::{Entry, Knowledge, Settler};
+use crate::store::merge::{self, Entry, Knowledge, Settler};
 use crate::store::{Hlc, Op, Store, log};
 use crate::tables;
 use crate::{Error, Result};
@@ -274,8 +274,7 @@ fn apply_within(
             .ok_or_else(|| refuse(format!("table_name: {table:?} is not a table")))?;
         let arrived = at.iter().map(|n| &cs.changes[*n]);
         let fields = arrived.clone().map(|c| (c.op, c.field, &c.new_value));
-        let stored = settler
-            .insert_new(tx, schema, row_id, fields)
+        let stored = merge::insert_new(tx, schema, row_id, fields)
             .map_err(|e| refuse(format!("{table} {row_id}: {e}")))?;
         if stored {
             continue;
