@@ -5,7 +5,7 @@
 //! stored as ONE entry (migration 0006): `op` = 'insert', `field` NULL and
 //! `new_value` the fields it set, packed ([`pack_insert`]): a JSON array of
 //! `[field, value]` pairs in column order, each value in its
-//! [`typed_text`](super::typed_text) form. Its seq is the first of the
+//! [`typed_text`] form. Its seq is the first of the
 //! consecutive seqs its fields take, one per pair (so a change-set file,
 //! which has one line per field, reads the same as before). Inserts are
 //! nearly all of a season's log, and storing one entry per row instead of one
