@@ -4,10 +4,10 @@
 //! update, a delete and a restore are one stored entry each. A new row is
 //! stored as ONE entry (migration 0006): `op` = 'insert', `field` NULL and
 //! `new_value` the fields it set, packed ([`pack_insert`]): a JSON array of
-//! `[field, value]` pairs in column order, each value in its
-//! [`typed_text`] form. Its seq is the first of the
-//! consecutive seqs its fields take, one per pair (so a change-set file,
-//! which has one line per field, reads the same as before). Inserts are
+//! `[field, value]` pairs in column order, each value in its [`typed_text`]
+//! form. Its seq is the first of the consecutive seqs its fields take, one
+//! per pair (so a change-set file, which has one line per field, reads the
+//! same as before). Inserts are
 //! nearly all of a season's log, and storing one entry per row instead of one
 //! per field is what lets a new tablet merge a crew's season in seconds.
 //!
@@ -51,8 +51,17 @@ pub struct LoggedChange {
     pub entry: LogEntry,
 }
 
-/// The stored columns every read selects, in this order.
-const COLUMNS: &str = "device_id, seq, hlc, table_name, row_id, op, field, old_value, new_value";
+/// A query of stored entries: every column, in the order [`expand`] reads
+/// them, then the rest of the statement.
+macro_rules! select_entries {
+    ($rest:literal) => {
+        concat!(
+            "SELECT device_id, seq, hlc, table_name, row_id, op, field, old_value, new_value \
+             FROM change_log ",
+            $rest
+        )
+    };
+}
 
 /// The statement that stores one entry.
 pub const INSERT_SQL: &str = "INSERT INTO change_log \
@@ -174,8 +183,8 @@ fn expand(r: &Row<'_>, out: &mut Vec<LoggedChange>) -> Result<()> {
     Ok(())
 }
 
-/// The [`LoggedChange`]s of the stored entries a query selects (it must
-/// select [`COLUMNS`]).
+/// The [`LoggedChange`]s of the stored entries a query selects (made with
+/// `select_entries!`).
 fn query(conn: &Connection, sql: &str, args: impl rusqlite::Params) -> Result<Vec<LoggedChange>> {
     let mut stmt = conn.prepare_cached(sql)?;
     let mut rows = stmt.query(args)?;
@@ -188,8 +197,8 @@ fn query(conn: &Connection, sql: &str, args: impl rusqlite::Params) -> Result<Ve
 
 /// The SQL of [`row_entries`]: the stored entries of one row, through the
 /// row index.
-const ROW_ENTRIES: &str = "SELECT device_id, seq, hlc, table_name, row_id, op, field, old_value, new_value \
-     FROM change_log WHERE table_name = ?1 AND row_id = ?2 ORDER BY device_id, seq";
+const ROW_ENTRIES: &str =
+    select_entries!("WHERE table_name = ?1 AND row_id = ?2 ORDER BY device_id, seq");
 
 /// Every change-log entry of one row, in the order of (device, seq).
 pub fn row_entries(conn: &Connection, table: &str, row_id: &str) -> Result<Vec<LogEntry>> {
@@ -214,15 +223,15 @@ pub fn device_entries(
     first: i64,
     last: i64,
 ) -> Result<Vec<LoggedChange>> {
-    const SQL: &str = "SELECT device_id, seq, hlc, table_name, row_id, op, field, old_value, new_value \
-         FROM change_log WHERE device_id = ?1 AND seq BETWEEN ?2 AND ?3 ORDER BY seq";
+    const SQL: &str =
+        select_entries!("WHERE device_id = ?1 AND seq BETWEEN ?2 AND ?3 ORDER BY seq");
     query(conn, SQL, params![device, first, last])
 }
 
 /// The entry `seq` of `device`, also when it is a field of a packed insert.
 pub fn entry_at(conn: &Connection, device: &str, seq: i64) -> Result<Option<LoggedChange>> {
-    const SQL: &str = "SELECT device_id, seq, hlc, table_name, row_id, op, field, old_value, new_value \
-         FROM change_log WHERE device_id = ?1 AND seq <= ?2 ORDER BY seq DESC LIMIT 1";
+    const SQL: &str =
+        select_entries!("WHERE device_id = ?1 AND seq <= ?2 ORDER BY seq DESC LIMIT 1");
     Ok(query(conn, SQL, params![device, seq])?
         .into_iter()
         .find(|c| c.entry.seq == seq))
@@ -230,8 +239,7 @@ pub fn entry_at(conn: &Connection, device: &str, seq: i64) -> Result<Option<Logg
 
 /// Every entry of the log, in the order of (device, seq).
 pub fn all_entries(conn: &Connection) -> Result<Vec<LoggedChange>> {
-    let sql = format!("SELECT {COLUMNS} FROM change_log ORDER BY device_id, seq");
-    query(conn, &sql, [])
+    query(conn, select_entries!("ORDER BY device_id, seq"), [])
 }
 
 /// Number of entries (fields of inserts counted one by one) of `device`

@@ -1,6 +1,7 @@
 //! Schema migrations: numbered `.sql` files in `schemas/sqlite/` (0006 with
 //! a step in Rust after its SQL), embedded in the binary, applied at open in
-//! one transaction and tracked by `PRAGMA user_version`. Old files are never edited; a change is a new file.
+//! one transaction and tracked by `PRAGMA user_version`. Old files are never
+//! edited; a change is a new file.
 
 use rusqlite::types::Value;
 use rusqlite::{Connection, TransactionBehavior};
