@@ -127,9 +127,6 @@ pub fn unpack_insert(text: &str) -> std::result::Result<Vec<(String, Value)>, St
         .collect()
 }
 
-/// How many seqs a stored entry takes: the fields of a packed insert, else 1.
-pub const SPAN_SQL: &str = "CASE WHEN op = 'insert' THEN json_array_length(new_value) ELSE 1 END";
-
 /// Read one stored entry and append the [`LoggedChange`]s it holds.
 fn expand(r: &Row<'_>, out: &mut Vec<LoggedChange>) -> Result<()> {
     let device_id: String = r.get(0)?;
@@ -244,36 +241,38 @@ pub fn all_entries(conn: &Connection) -> Result<Vec<LoggedChange>> {
 
 /// Number of entries (fields of inserts counted one by one) of `device`
 /// after seq `after`, or of every device when `device` is `None`.
+///
+/// Derived from the last seqs, without unpacking a single insert: every
+/// device's entries in a log run gapless from seq 1 (a device numbers its
+/// own entries one by one, and another device's are applied whole
+/// change-sets at a time, in seq order). Summing the fields of every packed
+/// insert instead took a quarter of a second on a merged season, at every
+/// overview the UI asks for.
 pub fn count(conn: &Connection, device: Option<&str>, after: i64) -> Result<i64> {
-    let sql = count_sql(device.is_some());
-    let mut stmt = conn.prepare_cached(&sql)?;
-    Ok(match device {
-        Some(d) => stmt.query_row(params![d, after], |r| r.get(0))?,
-        None => stmt.query_row([after], |r| r.get(0))?,
-    })
+    let devices: Vec<String> = match device {
+        Some(d) => vec![d.to_owned()],
+        None => conn
+            .prepare_cached("SELECT DISTINCT device_id FROM change_log")?
+            .query_map([], |r| r.get(0))?
+            .collect::<rusqlite::Result<_>>()?,
+    };
+    let mut total = 0;
+    for d in &devices {
+        total += (last_seq(conn, d)?.unwrap_or(0) - after).max(0);
+    }
+    Ok(total)
 }
 
-/// The SQL of [`count`]: two statements, as with `?1 IS NULL OR
-/// device_id = ?1` SQLite would read the whole log instead of the device's
-/// entries.
-fn count_sql(of_device: bool) -> String {
-    let filter = if of_device {
-        "device_id = ?1 AND seq > ?2"
-    } else {
-        "seq > ?1"
-    };
-    format!("SELECT coalesce(sum({SPAN_SQL}), 0) FROM change_log WHERE {filter}")
-}
+/// The SQL of [`last_seq`]: the device's last stored entry, and the seqs it
+/// takes.
+const LAST_SEQ: &str = "SELECT seq + (CASE WHEN op = 'insert' THEN json_array_length(new_value) ELSE 1 END) - 1 \
+     FROM change_log WHERE device_id = ?1 ORDER BY seq DESC LIMIT 1";
 
 /// The highest seq of `device` in the log (the last field of a packed
 /// insert), or `None` when it has no entry.
 pub fn last_seq(conn: &Connection, device: &str) -> Result<Option<i64>> {
-    let sql = format!(
-        "SELECT seq + ({SPAN_SQL}) - 1 FROM change_log WHERE device_id = ?1 \
-         ORDER BY seq DESC LIMIT 1"
-    );
     Ok(conn
-        .prepare_cached(&sql)?
+        .prepare_cached(LAST_SEQ)?
         .query_row([device], |r| r.get(0))
         .optional()?)
 }
@@ -317,14 +316,14 @@ mod tests {
     /// The count of a device's unsent entries is read at every sync and
     /// status call: it must not read the whole log.
     #[test]
-    fn a_devices_count_reads_only_its_entries() {
+    fn a_devices_count_reads_only_its_last_entry() {
         let dir = tempfile::tempdir().expect("temp dir");
         let store = crate::Store::open(dir.path().join("count.db")).expect("open");
         let plan: Vec<String> = store
             .conn()
-            .prepare(&format!("EXPLAIN QUERY PLAN {}", count_sql(true)))
+            .prepare(&format!("EXPLAIN QUERY PLAN {LAST_SEQ}"))
             .expect("valid SQL")
-            .query_map(params!["d", 0], |r| r.get(3))
+            .query_map(["d"], |r| r.get(3))
             .expect("plan")
             .collect::<rusqlite::Result<_>>()
             .expect("plan rows");

@@ -234,8 +234,8 @@ pub fn decode(bytes: &[u8]) -> Result<ChangeSet, String> {
         ));
     }
     let mut changes: Vec<Change> = Vec::with_capacity(head.rows as usize);
-    // The field positions of the insert run the last entry belongs to.
-    let mut run: Vec<usize> = Vec::new();
+    // The fields of the insert run the last entry belongs to.
+    let mut run: Vec<&'static str> = Vec::new();
     for (n, record) in records.enumerate() {
         let record = record.map_err(|e| format!("line {}: {e}", n + 3))?;
         let line = record.position().map_or(n as u64 + 3, |p| p.line());
@@ -265,21 +265,21 @@ pub fn decode(bytes: &[u8]) -> Result<ChangeSet, String> {
 /// An insert is a run of entries: the row's `id` entry, then at most one
 /// entry per other field of the same row, with nothing between them (how the
 /// writer logs it; the change log stores each run as one packed entry, see
-/// [`crate::store::log`]). `run` holds the field positions of the run `last`
-/// belongs to.
-fn continue_run(run: &mut Vec<usize>, last: Option<&Change>, c: &Change) -> Result<(), String> {
+/// [`crate::store::log`]). `run` holds the fields of the run `last` belongs
+/// to (the schema's own strings, as every [`Change`] names them).
+fn continue_run(
+    run: &mut Vec<&'static str>,
+    last: Option<&Change>,
+    c: &Change,
+) -> Result<(), String> {
     let field = c.field.unwrap_or_default();
     if c.op != Op::Insert {
         run.clear();
         return Ok(());
     }
-    // parse_row has checked that the table and the field exist.
-    let position = tables::get(c.table)
-        .and_then(|t| t.index(field))
-        .unwrap_or_default();
     if field == "id" {
         run.clear();
-        run.push(position);
+        run.push(field);
         return Ok(());
     }
     let same_row = last.is_some_and(|l| {
@@ -292,13 +292,13 @@ fn continue_run(run: &mut Vec<usize>, last: Option<&Change>, c: &Change) -> Resu
             c.table, c.row_id
         ));
     }
-    if run.contains(&position) {
+    if run.contains(&field) {
         return Err(format!(
             "{}.{field}: given twice in one insert of row {}",
             c.table, c.row_id
         ));
     }
-    run.push(position);
+    run.push(field);
     Ok(())
 }
 
