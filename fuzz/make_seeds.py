@@ -4,7 +4,7 @@
 - import_tables: table files of the exported demo season (demo_data/season/):
   the setup tables, the setup with a few visits and their records, and single
   record tables without their parents. Format: chunks separated by a NUL byte,
-  each "<file name>\\n<content>" (see fieldcage::fuzz_checks::import_file_set).
+  each "<file name>\\n<content>" (see fieldcage_testkit::fuzz_checks::import_file_set).
 - changeset_reader: slices of the change-set that `fieldcage sync` writes for
   the demo season, each with its header's range and row count set to the
   slice and a fresh SHA-256 trailer.

@@ -67,7 +67,7 @@ fi
 
 say "independent checks (pytest tests/python): data package by frictionless and pandas; statistics vs scipy, numpy, lifelines"
 cargo build --locked --quiet
-FIELDCAGE_BIN="$PWD/target/debug/fieldcage" .venv/bin/python -m pytest -q tests/python
+FIELDCAGE_BIN="$PWD/target/debug/fieldcage" FIELDCAGE_PROBE="$PWD/target/debug/fieldcage-probe" .venv/bin/python -m pytest -q tests/python
 
 say "browser end-to-end tests: Debian chromium + playwright-core (tests/e2e)"
 if [ ! -x /usr/bin/chromium ]; then

@@ -6,8 +6,8 @@ use std::sync::Arc;
 
 use axum::body::Body;
 use axum::http::{Request, StatusCode};
-use fieldcage::server::{Guard, router};
-use fieldcage::service::Service;
+use fieldcage_ops::Service;
+use fieldcage_server::{Guard, router};
 use http_body_util::BodyExt;
 use serde_json::{Value, json};
 use tower::ServiceExt;
@@ -61,7 +61,7 @@ impl Api {
 
     /// Everything stored, read through a second connection.
     fn stored(&self) -> String {
-        let store = fieldcage::Store::open(&self.db).unwrap();
+        let store = fieldcage_core::Store::open(&self.db).unwrap();
         crate::util::snapshot(&store)
     }
 }
@@ -108,7 +108,7 @@ async fn every_operation_round_trips() {
         .iter()
         .map(|v| v.as_str().unwrap())
         .collect();
-    assert_eq!(listed.len(), fieldcage::service::OPERATIONS.len());
+    assert_eq!(listed.len(), fieldcage_ops::OPERATIONS.len());
 
     let route = api.ok("route", json!({})).await;
     let cages: usize = route["blocks"]
@@ -178,7 +178,7 @@ async fn every_operation_round_trips() {
             json!({ "leaf_id": leaf["id"], "class_code": "3" }),
         )
         .await;
-    // Dirzo & Dominguez class 3 midpoint 18.5 % (from memory; REFERENCES.md section 3).
+    // Dirzo & Dominguez class 3 midpoint 18.5 % (from memory; docs/methods.md section 3).
     assert_eq!(damage["record"]["damage_pct"], 18.5);
     let replaced = api
         .ok(
@@ -515,7 +515,7 @@ async fn lan_mode_needs_the_token() {
 
 #[test]
 fn the_ui_is_small_and_self_contained() {
-    let files = fieldcage::server::ui_files();
+    let files = fieldcage_server::ui_files();
     let total: usize = files.iter().map(|(_, n)| n).sum();
     // Issue budget: all of ui/ under 150 KB uncompressed.
     assert!(total < 150 * 1024, "ui/ is {total} bytes");
@@ -523,12 +523,7 @@ fn the_ui_is_small_and_self_contained() {
         .iter()
         .filter(|(n, _)| n.ends_with(".html") || n.ends_with(".js") || n.ends_with(".css"))
     {
-        let text = std::fs::read_to_string(
-            std::path::Path::new(env!("CARGO_MANIFEST_DIR"))
-                .join("ui")
-                .join(name),
-        )
-        .unwrap();
+        let text = std::fs::read_to_string(crate::util::repo_root().join("ui").join(name)).unwrap();
         // The SVG namespace is a name (W3C SVG 1.1), not something loaded.
         let text = text.replace("'http://www.w3.org/2000/svg'", "");
         assert!(

@@ -3,10 +3,12 @@
 //! run in child processes that report their peak memory, and the raw dump
 //! holds the same rows as the export. No timing is asserted.
 
-use fieldcage::bench::{self, Options, Stage};
-use fieldcage::synth::{self, SeasonSize};
+#![allow(clippy::unwrap_used)] // a failed unwrap is a failed test
 
-use crate::util::Temp;
+use fieldcage_bench::{self as bench, Options, Stage};
+use fieldcage_testkit::synth::{self, SeasonSize};
+
+use fieldcage_testkit::fixture::Temp;
 
 const TINY: SeasonSize = SeasonSize {
     cages: 4,
@@ -21,7 +23,7 @@ fn the_report_prints_every_figure_with_its_ratio_and_verdict() {
         size: TINY,
         scales: vec![1, 2],
         saves: 20,
-        stage_exe: Some(env!("CARGO_BIN_EXE_fieldcage").into()),
+        stage_exe: Some(env!("CARGO_BIN_EXE_fieldcage-bench").into()),
     };
     let report = bench::run(&options, tmp.dir.path()).unwrap();
     let text = bench::format_report(&report);
@@ -139,14 +141,14 @@ fn the_report_prints_every_figure_with_its_ratio_and_verdict() {
 fn the_raw_dump_holds_the_rows_of_the_export() {
     let tmp = Temp::new();
     let db = tmp.path("season.db");
-    let mut store = fieldcage::Store::open(&db).unwrap();
+    let mut store = fieldcage_core::Store::open(&db).unwrap();
     synth::build(&mut store, TINY, 1).unwrap();
     drop(store);
     let today = bench::checks_day(TINY);
     bench::run_stage(Stage::Export, &db, &tmp.path("export"), today).unwrap();
     bench::run_stage(Stage::RawDump, &db, &tmp.path("raw"), today).unwrap();
     let mut tables = 0;
-    for schema in fieldcage::tables::all() {
+    for schema in fieldcage_core::tables::all() {
         let name = format!("{}.csv", schema.name);
         let read = |dir: &str| -> Vec<csv::StringRecord> {
             csv::Reader::from_path(tmp.path(dir).join(&name))

@@ -3,14 +3,14 @@
 
 use std::collections::BTreeMap;
 
-use fieldcage::model::*;
-use fieldcage::tables;
+use fieldcage_core::model::*;
+use fieldcage_core::tables;
 use rusqlite::types::Value;
 
 use crate::util::{Temp, count, demo_store, log_entries, snapshot};
 
 /// Replay the log: (table, row id) → field → value, and the deleted rows.
-fn replay(store: &fieldcage::Store) -> BTreeMap<(String, String), BTreeMap<String, Value>> {
+fn replay(store: &fieldcage_core::Store) -> BTreeMap<(String, String), BTreeMap<String, Value>> {
     let mut rows: BTreeMap<(String, String), BTreeMap<String, Value>> = BTreeMap::new();
     log_entries(store);
     let mut stmt = store
@@ -45,7 +45,9 @@ fn replay(store: &fieldcage::Store) -> BTreeMap<(String, String), BTreeMap<Strin
 }
 
 /// The live tables in the same shape, leaving out NULLs.
-fn live_tables(store: &fieldcage::Store) -> BTreeMap<(String, String), BTreeMap<String, Value>> {
+fn live_tables(
+    store: &fieldcage_core::Store,
+) -> BTreeMap<(String, String), BTreeMap<String, Value>> {
     let mut out = BTreeMap::new();
     for schema in tables::all() {
         for row in store.rows(schema).unwrap() {
@@ -240,9 +242,9 @@ fn hlc_timestamps_never_go_backwards_when_the_clock_does() {
         Arc::new(move || wall.load(Ordering::SeqCst))
     };
     let path = tmp.path("clock.db");
-    let mut store = fieldcage::Store::open_with_clock(&path, clock).unwrap();
+    let mut store = fieldcage_core::Store::open_with_clock(&path, clock).unwrap();
     let def = crate::util::demo_definition_with(&[]).unwrap();
-    fieldcage::setup::init(&mut store, &def, 1).unwrap();
+    fieldcage_core::setup::init(&mut store, &def, 1).unwrap();
     wall.store(0, Ordering::SeqCst); // the tablet's clock falls back to 1970
     let mut t = store.list::<Treatment>().unwrap()[0].clone();
     t.notes = Some("after the clock reset".into());
@@ -281,14 +283,14 @@ fn the_entries_of_every_row_are_found_through_the_row_index() {
     // Entries of another device, in the log as a sync stores them.
     let target = tmp.path("target");
     std::fs::create_dir_all(&target).unwrap();
-    fieldcage::sync::sync_once(&mut store, &target).unwrap();
-    let mut other = fieldcage::Store::open(tmp.path("other.db")).unwrap();
-    fieldcage::sync::sync_once(&mut other, &target).unwrap();
+    fieldcage_core::sync::sync_once(&mut store, &target).unwrap();
+    let mut other = fieldcage_core::Store::open(tmp.path("other.db")).unwrap();
+    fieldcage_core::sync::sync_once(&mut other, &target).unwrap();
     other
         .write(|w| w.update_fields(cover, &ids[0], &[("notes", Value::Text("again".into()))]))
         .unwrap();
-    fieldcage::sync::sync_once(&mut other, &target).unwrap();
-    fieldcage::sync::sync_once(&mut store, &target).unwrap();
+    fieldcage_core::sync::sync_once(&mut other, &target).unwrap();
+    fieldcage_core::sync::sync_once(&mut store, &target).unwrap();
 
     let mut scanned: BTreeMap<(String, String), Vec<(String, i64)>> = BTreeMap::new();
     log_entries(&store);
@@ -319,14 +321,14 @@ fn the_entries_of_every_row_are_found_through_the_row_index() {
     assert_eq!(devices.len(), 2, "entries of both devices");
     for ((table, row_id), expected) in &scanned {
         let found: Vec<(String, i64)> =
-            fieldcage::store::log::row_entries(store.conn(), table, row_id)
+            fieldcage_core::store::log::row_entries(store.conn(), table, row_id)
                 .unwrap()
                 .into_iter()
                 .map(|e| (e.device_id, e.seq))
                 .collect();
         assert_eq!(&found, expected, "{table} {row_id}");
     }
-    let plan = fieldcage::store::log::row_entries_plan(store.conn()).unwrap();
+    let plan = fieldcage_core::store::log::row_entries_plan(store.conn()).unwrap();
     assert!(
         plan.iter().any(|p| p.contains("INDEX change_log_row_idx"))
             && !plan.iter().any(|p| p.starts_with("SCAN")),

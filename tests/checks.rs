@@ -5,18 +5,18 @@
 //! that survive export → import.
 //!
 //! Thresholds: the demo protocol's cover tolerance is 5 points (common
-//! practice, REFERENCES.md section 2); the other limits are
+//! practice, docs/methods.md section 2); the other limits are
 //! `checks::Limits::DEFAULT` (our own: 25 points of cover change, 15 % damage
 //! without herbivores). Counts and schedules are the demo definition's
 //! (invented): 10 slugs stocked, restock below 5, census every 3 days from day
 //! 3 with 1 grace day.
 
 use chrono::{DateTime, Duration, FixedOffset, NaiveDate, TimeZone};
-use fieldcage::checks::{self, Flag, Rule, Scope};
-use fieldcage::model::*;
-use fieldcage::record::{self, CoverEntry, CoverTarget, DamageEntry, NewVisit};
-use fieldcage::store::Writer;
-use fieldcage::{Store, demo, tables};
+use fieldcage_core::checks::{self, Flag, Rule, Scope};
+use fieldcage_core::model::*;
+use fieldcage_core::record::{self, CoverEntry, CoverTarget, DamageEntry, NewVisit};
+use fieldcage_core::store::Writer;
+use fieldcage_core::{Store, demo, tables};
 use rusqlite::types::Value;
 
 use crate::util::{Temp, demo_store, store_with};
@@ -53,7 +53,7 @@ impl Fx {
 
     /// The n-th cage (by label) of a treatment: (id, label).
     fn cage(&self, treatment: &str, n: usize) -> (EnclosureId, String) {
-        let mut labels: Vec<String> = fieldcage::setup::layout(&self.store)
+        let mut labels: Vec<String> = fieldcage_core::setup::layout(&self.store)
             .unwrap()
             .into_iter()
             .filter(|c| c.treatment == treatment)
@@ -111,7 +111,7 @@ impl Fx {
         .id
     }
 
-    fn write<T>(&mut self, f: impl FnOnce(&mut Writer<'_>) -> fieldcage::Result<T>) -> T {
+    fn write<T>(&mut self, f: impl FnOnce(&mut Writer<'_>) -> fieldcage_core::Result<T>) -> T {
         self.store.write(f).unwrap()
     }
 
@@ -344,7 +344,7 @@ fn cover_total_of_first_hits_is_the_frame_exactly() {
     )]);
     let (a, la) = fx.cage("S", 0);
     let (b, lb) = fx.cage("S", 1);
-    // Elzinga, Salzer & Willoughby 1998 (REFERENCES.md section 2, computed):
+    // Elzinga, Salzer & Willoughby 1998 (docs/methods.md section 2, computed):
     // a 10-pin frame with first hits 4 grass, 3 forb, 2 litter, 1 bare fills it.
     let hits = |h: i64| CoverEntry::Pins(h);
     let va = fx.visit(a, VisitKind::Cover, 14);
@@ -495,7 +495,7 @@ fn cover_blank_survey_but_zero_is_a_value() {
         ],
     );
     let vb = fx.visit(b, VisitKind::Cover, 14);
-    // 0 = looked, absent; blank = not assessed (REFERENCES.md section 2).
+    // 0 = looked, absent; blank = not assessed (docs/methods.md section 2).
     fx.cover(
         vb,
         &[
@@ -918,10 +918,8 @@ fn visits_no_observer() {
 
 #[test]
 fn every_rule_has_a_unique_dotted_id_of_its_family_and_is_documented() {
-    let developers = std::fs::read_to_string(
-        std::path::Path::new(env!("CARGO_MANIFEST_DIR")).join("DEVELOPERS.md"),
-    )
-    .unwrap();
+    let developers =
+        std::fs::read_to_string(crate::util::repo_root().join("DEVELOPERS.md")).unwrap();
     let pattern = tables::get("flag").unwrap().field("rule_id").unwrap();
     let mut ids = std::collections::HashSet::new();
     for rule in checks::rules() {
@@ -1279,9 +1277,9 @@ fn confirmed_flags_survive_export_and_import() {
     let tmp = Temp::new();
     let store = demo_store(&tmp);
     let folder = tmp.path("export");
-    fieldcage::export::export(&store, &folder).unwrap();
+    fieldcage_core::export::export(&store, &folder).unwrap();
     let mut copy = tmp.store("copy.db");
-    fieldcage::import::import(&mut copy, &folder).unwrap();
+    fieldcage_core::import::import(&mut copy, &folder).unwrap();
     let flags = store.list::<StoredFlag>().unwrap();
     assert_eq!(copy.list::<StoredFlag>().unwrap(), flags);
     let confirmed: Vec<&StoredFlag> = flags
@@ -1303,12 +1301,12 @@ fn confirmed_flags_survive_export_and_import() {
 fn a_synthetic_season_raises_only_its_chance_cover_totals() {
     let tmp = Temp::new();
     let mut store = tmp.store("synthetic.db");
-    let size = fieldcage::synth::SeasonSize {
+    let size = fieldcage_testkit::synth::SeasonSize {
         cages: 8,
         visits: 5,
         species: 10,
     };
-    fieldcage::synth::build(&mut store, size, 1).unwrap();
+    fieldcage_testkit::synth::build(&mut store, size, 1).unwrap();
     let today = NaiveDate::from_ymd_opt(2026, 4, 30).unwrap();
     let flags = checks::check(store.conn(), &Scope::Season, today).unwrap();
     assert!(

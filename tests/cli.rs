@@ -51,7 +51,7 @@ fn demo_export_import_export_round_trips_byte_for_byte() {
     let y = files(&cwd.join("y"));
     assert_eq!(
         x.len(),
-        fieldcage::tables::all().len() + fieldcage::tables::analysis().len() + 2,
+        fieldcage_core::tables::all().len() + fieldcage_core::tables::analysis().len() + 2,
         "a CSV per data and analysis table, datapackage.json and report.md"
     );
     assert_eq!(x, y);
@@ -61,7 +61,7 @@ fn demo_export_import_export_round_trips_byte_for_byte() {
 fn init_and_layout_from_the_shipped_definition() {
     let tmp = Temp::new();
     let cwd = tmp.dir.path();
-    let def = Path::new(env!("CARGO_MANIFEST_DIR")).join("demo_data/definition.toml");
+    let def = crate::util::repo_root().join("demo_data/definition.toml");
     let out = ok(&fieldcage(
         &[
             "init",
@@ -232,7 +232,7 @@ fn check_lists_flags_and_fails_while_errors_are_open() {
 fn two_tablets_sync_through_a_folder_from_the_command_line() {
     let tmp = Temp::new();
     let cwd = tmp.dir.path();
-    let def = Path::new(env!("CARGO_MANIFEST_DIR")).join("demo_data/definition.toml");
+    let def = crate::util::repo_root().join("demo_data/definition.toml");
     std::fs::create_dir(cwd.join("share")).unwrap();
     for db in ["a.db", "b.db"] {
         ok(&fieldcage(
@@ -248,11 +248,11 @@ fn two_tablets_sync_through_a_folder_from_the_command_line() {
     assert!(out.contains("last sync:   never"), "{out}");
     // Both edit one treatment's notes before they have synced.
     for (db, note) in [("a.db", "mesh torn"), ("b.db", "mesh mended")] {
-        let store = fieldcage::Store::open(cwd.join(db)).unwrap();
-        let mut t = store.list::<fieldcage::model::Treatment>().unwrap()[0].clone();
+        let store = fieldcage_core::Store::open(cwd.join(db)).unwrap();
+        let mut t = store.list::<fieldcage_core::model::Treatment>().unwrap()[0].clone();
         drop(store);
         t.notes = Some(note.into());
-        let mut store = fieldcage::Store::open(cwd.join(db)).unwrap();
+        let mut store = fieldcage_core::Store::open(cwd.join(db)).unwrap();
         store.write(|w| w.update(&t)).unwrap();
     }
     let out = ok(&fieldcage(
@@ -291,18 +291,18 @@ fn two_tablets_sync_through_a_folder_from_the_command_line() {
         &["backup", "--db", "a.db", "--to", "copy.db"],
         cwd,
     ));
-    let store = fieldcage::Store::open(cwd.join("copy.db")).unwrap();
-    let mut t = store.list::<fieldcage::model::Treatment>().unwrap()[1].clone();
+    let store = fieldcage_core::Store::open(cwd.join("copy.db")).unwrap();
+    let mut t = store.list::<fieldcage_core::model::Treatment>().unwrap()[1].clone();
     drop(store);
     t.notes = Some("written on the copy".into());
-    let mut store = fieldcage::Store::open(cwd.join("copy.db")).unwrap();
+    let mut store = fieldcage_core::Store::open(cwd.join("copy.db")).unwrap();
     store.write(|w| w.update(&t)).unwrap();
     drop(store);
-    let store = fieldcage::Store::open(cwd.join("a.db")).unwrap();
-    let mut t = store.list::<fieldcage::model::Treatment>().unwrap()[2].clone();
+    let store = fieldcage_core::Store::open(cwd.join("a.db")).unwrap();
+    let mut t = store.list::<fieldcage_core::model::Treatment>().unwrap()[2].clone();
     drop(store);
     t.notes = Some("written on the original".into());
-    let mut store = fieldcage::Store::open(cwd.join("a.db")).unwrap();
+    let mut store = fieldcage_core::Store::open(cwd.join("a.db")).unwrap();
     store.write(|w| w.update(&t)).unwrap();
     drop(store);
     ok(&fieldcage(
@@ -324,7 +324,7 @@ fn two_tablets_sync_through_a_folder_from_the_command_line() {
 fn a_saved_sync_target_is_used_when_sync_names_none() {
     let tmp = Temp::new();
     let cwd = tmp.dir.path();
-    let def = Path::new(env!("CARGO_MANIFEST_DIR")).join("demo_data/definition.toml");
+    let def = crate::util::repo_root().join("demo_data/definition.toml");
     ok(&fieldcage(
         &["init", "--db", "a.db", def.to_str().unwrap(), "--seed", "5"],
         cwd,

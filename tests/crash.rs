@@ -1,5 +1,5 @@
-//! The crash test: a writer process (`fieldcage crash-writer`, see
-//! `fieldcage::crash_writer`) saves censuses and cover through the operation
+//! The crash test: a writer process (`fieldcage-crash-writer`, see
+//! `fieldcage_testkit::crash_writer`) saves censuses and cover through the operation
 //! set and logs each save before the call and again once it returned; this
 //! test kills it with SIGKILL at a seeded random point, reopens the database
 //! and checks that
@@ -18,17 +18,19 @@
 //! 10 000, see README "Reliability"). `FIELDCAGE_CRASH_SEED` changes the
 //! seed; a failure prints the seed and cycle to replay.
 
+#![allow(clippy::unwrap_used)] // a failed unwrap is a failed test
+
 use std::collections::BTreeMap;
 use std::io::{BufRead, BufReader};
 use std::path::Path;
 use std::process::{Command, Stdio};
 use std::time::Duration;
 
-use fieldcage::Store;
-use fieldcage::crash_writer::{self, LogLine, SaveKey, SaveKind};
+use fieldcage_core::Store;
+use fieldcage_testkit::crash_writer::{self, LogLine, SaveKey, SaveKind};
 use rand::{Rng, SeedableRng};
 
-use crate::util::{Temp, store_with};
+use fieldcage_testkit::fixture::{Temp, store_with};
 
 const DEFAULT_CYCLES: u64 = 500;
 const DEFAULT_SEED: u64 = 82_026;
@@ -74,8 +76,7 @@ fn every_acknowledged_save_survives_sigkill() {
     for cycle in 0..cycles {
         let replay = format!("cycle {cycle} of FIELDCAGE_CRASH_SEED={seed}");
         let _ = std::fs::remove_file(&log);
-        let mut child = Command::new(env!("CARGO_BIN_EXE_fieldcage"))
-            .arg("crash-writer")
+        let mut child = Command::new(env!("CARGO_BIN_EXE_fieldcage-crash-writer"))
             .arg("--db")
             .arg(&db)
             .arg("--log")
@@ -153,8 +154,8 @@ fn check_after_kill(
         })
         .unwrap();
     assert_eq!(broken, 0, "{replay}: broken foreign keys");
-    let entries = fieldcage::store::log::count(conn, Some(store.device_id()), 0).unwrap();
-    let last = fieldcage::store::log::last_seq(conn, store.device_id())
+    let entries = fieldcage_core::store::log::count(conn, Some(store.device_id()), 0).unwrap();
+    let last = fieldcage_core::store::log::last_seq(conn, store.device_id())
         .unwrap()
         .unwrap_or(0);
     let next: i64 = conn
@@ -272,8 +273,7 @@ fn the_writer_logs_a_try_and_an_ack_for_each_save() {
     let tmp = Temp::new();
     let db = store_with(&tmp, &[], 4).path().to_path_buf();
     let log = tmp.path("saves.log");
-    let out = Command::new(env!("CARGO_BIN_EXE_fieldcage"))
-        .arg("crash-writer")
+    let out = Command::new(env!("CARGO_BIN_EXE_fieldcage-crash-writer"))
         .arg("--db")
         .arg(&db)
         .arg("--log")

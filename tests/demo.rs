@@ -3,7 +3,7 @@
 
 use std::path::Path;
 
-use fieldcage::model::*;
+use fieldcage_core::model::*;
 
 use crate::util::{Temp, data_snapshot, demo_store};
 
@@ -27,7 +27,7 @@ fn the_demo_season_covers_every_cage_and_visit_kind() {
     assert_eq!(
         enclosures.len(),
         24,
-        "6 blocks x 4 treatments (DESIGN.md demo scenario)"
+        "6 blocks x 4 treatments (docs/methods.md §10.5)"
     );
     for kind in VisitKind::ALL {
         assert!(visits.iter().any(|v| v.kind == *kind), "{kind} visits");
@@ -77,7 +77,7 @@ fn the_demo_season_is_plausible_for_its_scenario() {
 fn every_planted_problem_names_a_real_cage_and_day() {
     let tmp = Temp::new();
     let store = demo_store(&tmp);
-    let problems = fieldcage::demo::planted_problems(&store).unwrap();
+    let problems = fieldcage_core::demo::planted_problems(&store).unwrap();
     assert_eq!(problems.len(), 8);
     let labels: Vec<String> = store
         .list::<Enclosure>()
@@ -89,8 +89,7 @@ fn every_planted_problem_names_a_real_cage_and_day() {
         assert!(labels.contains(&p.enclosure), "{p:?}");
     }
     let readme =
-        std::fs::read_to_string(Path::new(env!("CARGO_MANIFEST_DIR")).join("demo_data/README.md"))
-            .unwrap();
+        std::fs::read_to_string(crate::util::repo_root().join("demo_data/README.md")).unwrap();
     for p in &problems {
         let line = format!("| {} | {} | {} |", p.enclosure, p.day, p.what);
         assert!(readme.contains(&line), "demo_data/README.md lists {line}");
@@ -104,8 +103,8 @@ fn shipped_demo_tables_match_a_fresh_build() {
     let tmp = Temp::new();
     let store = demo_store(&tmp);
     let out = tmp.path("season");
-    fieldcage::export::export(&store, &out).unwrap();
-    let shipped = Path::new(env!("CARGO_MANIFEST_DIR")).join("demo_data/season");
+    fieldcage_core::export::export(&store, &out).unwrap();
+    let shipped = crate::util::repo_root().join("demo_data/season");
     let list = |dir: &Path| -> Vec<String> {
         let mut v: Vec<String> = std::fs::read_dir(dir)
             .unwrap()

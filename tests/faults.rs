@@ -3,7 +3,7 @@
 //! come back as an error naming the file, leave the database as it was (sync:
 //! record only what is really written), and never show a reader part of a
 //! file under its final name. The failing steps go through the same seam as
-//! production (`fieldcage::disk::Disk`), delegating to the real file system.
+//! production (`fieldcage_core::disk::Disk`), delegating to the real file system.
 
 use std::cell::{Cell, RefCell};
 use std::collections::BTreeMap;
@@ -11,12 +11,12 @@ use std::fs::File;
 use std::io;
 use std::path::{Path, PathBuf};
 
-use fieldcage::disk::{Disk, OsDisk};
-use fieldcage::export;
-use fieldcage::model::{Enclosure, Role, Taxon};
-use fieldcage::service::Service;
-use fieldcage::sync::{self, SyncOptions, changeset};
-use fieldcage::{Error, Store};
+use fieldcage_core::disk::{Disk, OsDisk};
+use fieldcage_core::export;
+use fieldcage_core::model::{Enclosure, Role, Taxon};
+use fieldcage_core::sync::{self, SyncOptions, changeset};
+use fieldcage_core::{Error, Store};
+use fieldcage_ops::Service;
 use serde_json::json;
 
 use crate::util::{Temp, data_snapshot, fast_temp, snapshot, store_with};

@@ -1,19 +1,19 @@
 //! The fuzz targets' corpora, replayed in every `cargo test`: the committed
 //! seeds (`fuzz/seeds/`, real demo output made by `fuzz/make_seeds.py`) and
 //! every input a fuzz run found to crash (`fuzz/regressions/`) go through the
-//! same checks as the targets (`fieldcage::fuzz_checks`). The seeds must also
+//! same checks as the targets (`fieldcage_testkit::fuzz_checks`). The seeds must also
 //! stay what they are meant to be — valid files — or the fuzzer starts from
 //! nothing.
 
-use std::path::{Path, PathBuf};
+use std::path::PathBuf;
 
-use fieldcage::fuzz_checks;
-use fieldcage::sync::changeset;
+use fieldcage_core::sync::changeset;
+use fieldcage_testkit::fuzz_checks;
 
 use crate::util::Temp;
 
 fn corpus(kind: &str, target: &str) -> Vec<PathBuf> {
-    let dir = Path::new(env!("CARGO_MANIFEST_DIR"))
+    let dir = crate::util::repo_root()
         .join("fuzz")
         .join(kind)
         .join(target);
@@ -61,7 +61,7 @@ fn import_seeds_pass_the_checks_and_the_setup_seed_imports() {
         std::fs::write(folder.join(name), &chunk[end + 1..]).unwrap();
     }
     let mut store = tmp.store("setup.db");
-    let summary = fieldcage::import::import(&mut store, &folder).unwrap();
+    let summary = fieldcage_core::import::import(&mut store, &folder).unwrap();
     assert!(summary.tables.iter().map(|(_, n)| n).sum::<usize>() > 100);
 }
 

@@ -9,11 +9,11 @@
 //! must find lost acknowledged saves, which shows that it can see a loss.
 
 use chrono::NaiveDate;
-use fieldcage::Store;
-use fieldcage::model::{CoverRecord, Enclosure, Role, Taxon};
-use fieldcage::service::Service;
-use fieldcage::synth::{self, SeasonSize};
+use fieldcage_core::Store;
+use fieldcage_core::model::{CoverRecord, Enclosure, Role, Taxon};
+use fieldcage_ops::Service;
 use fieldcage_powercut::Power;
+use fieldcage_testkit::synth::{self, SeasonSize};
 use rand::{Rng, SeedableRng};
 use rand_chacha::ChaCha8Rng;
 use serde_json::json;

@@ -1,6 +1,6 @@
 //! Seeded randomised complete block design.
 
-use fieldcage::setup::randomise::rcbd;
+use fieldcage_core::setup::randomise::rcbd;
 use proptest::prelude::*;
 
 proptest! {

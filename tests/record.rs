@@ -1,9 +1,9 @@
 //! Field-entry commands: derived percents and refusals.
 
 use chrono::DateTime;
-use fieldcage::Store;
-use fieldcage::model::*;
-use fieldcage::record::{self, CoverEntry, CoverTarget, DamageEntry, NewVisit};
+use fieldcage_core::Store;
+use fieldcage_core::model::*;
+use fieldcage_core::record::{self, CoverEntry, CoverTarget, DamageEntry, NewVisit};
 
 use crate::util::{Temp, snapshot, store_with};
 
@@ -74,7 +74,7 @@ fn daubenmire_classes_convert_to_midpoints() {
             Ok(total)
         })
         .unwrap();
-    // Daubenmire 1959 midpoints: classes 3, 2, 1 -> 37.5 + 15 + 2.5 = 55 (REFERENCES.md section 1, computed).
+    // Daubenmire 1959 midpoints: classes 3, 2, 1 -> 37.5 + 15 + 2.5 = 55 (docs/methods.md section 1, computed).
     assert_eq!(total, 55.0);
 }
 
@@ -147,7 +147,7 @@ fn pin_hits_convert_to_percent_of_the_frame() {
         })
         .unwrap();
     // Elzinga, Salzer & Willoughby 1998: cover = 100 x hits / pins; a 10-pin frame
-    // with first hits 4, 3, 2, 1 gives 40/30/20/10 % (REFERENCES.md section 2, computed).
+    // with first hits 4, 3, 2, 1 gives 40/30/20/10 % (docs/methods.md section 2, computed).
     assert_eq!(covers, [Some(40.0), Some(30.0), Some(20.0), Some(10.0)]);
     let clover = taxon(&store, "CLO1");
     let err = store
@@ -168,7 +168,7 @@ fn entries_that_do_not_fit_the_visit_or_protocol_are_refused() {
     let slug = taxon(&store, "SLUG");
     let grass = taxon(&store, "GRA1");
     let before = snapshot(&store);
-    let cases: Vec<(fieldcage::Result<()>, &str)> = vec![
+    let cases: Vec<(fieldcage_core::Result<()>, &str)> = vec![
         (
             store.write(|w| record::census(w, cover_visit, slug, Some(3), None, None).map(drop)),
             "is a cover visit; this entry belongs to a census visit",
@@ -263,7 +263,7 @@ fn zero_and_not_assessed_are_kept_apart() {
         .unwrap()
         .collect::<Result<_, _>>()
         .unwrap();
-    // 0 = looked, absent; NULL = not assessed (DESIGN.md data model; common practice).
+    // 0 = looked, absent; NULL = not assessed (docs/methods.md §10.4; common practice).
     assert_eq!(rows, [(Some(0), None), (None, None)]);
 }
 
@@ -284,7 +284,7 @@ fn damage_classes_convert_to_midpoints_and_percent_is_kept() {
             Ok((a, b))
         })
         .unwrap();
-    // Dirzo & Dominguez 1995 class midpoints 18.5 and 75 (from memory; REFERENCES.md section 3).
+    // Dirzo & Dominguez 1995 class midpoints 18.5 and 75 (from memory; docs/methods.md section 3).
     assert_eq!((a.damage_pct, b.damage_pct), (Some(18.5), Some(75.0)));
     let err = store
         .write(|w| {
@@ -299,7 +299,7 @@ fn damage_classes_convert_to_midpoints_and_percent_is_kept() {
     );
 }
 
-fn store_leaf(w: &fieldcage::store::Writer<'_>) -> LeafId {
+fn store_leaf(w: &fieldcage_core::store::Writer<'_>) -> LeafId {
     w.conn()
         .query_row("SELECT id FROM tagged_leaf LIMIT 1", [], |r| r.get(0))
         .unwrap()

@@ -4,9 +4,9 @@
 //! stored: the SQLite checks apply to the stored tables only, and the
 //! analysis row structs must agree with their schemas instead.
 
-use fieldcage::model::*;
-use fieldcage::store::Record;
-use fieldcage::tables::{self, FieldType};
+use fieldcage_core::model::*;
+use fieldcage_core::store::Record;
+use fieldcage_core::tables::{self, FieldType};
 
 use crate::util::{Temp, demo_store};
 
@@ -105,12 +105,14 @@ fn tables_are_listed_after_every_table_they_reference() {
     }
 }
 
-fn record_round_trips<R: Record + PartialEq + std::fmt::Debug>(store: &fieldcage::Store) -> usize {
+fn record_round_trips<R: Record + PartialEq + std::fmt::Debug>(
+    store: &fieldcage_core::Store,
+) -> usize {
     let schema = tables::get(R::TABLE).unwrap();
     let rows = store.list::<R>().unwrap();
     for r in &rows {
-        let values = fieldcage::store::to_values(schema, r).unwrap();
-        let back: R = fieldcage::store::from_values(schema, values).unwrap();
+        let values = fieldcage_core::store::to_values(schema, r).unwrap();
+        let back: R = fieldcage_core::store::from_values(schema, values).unwrap();
         assert_eq!(&back, r);
     }
     rows.len()
@@ -166,7 +168,7 @@ fn schema_files(dir: &std::path::Path) -> Vec<String> {
 
 #[test]
 fn schema_files_on_disk_are_the_embedded_ones() {
-    let dir = std::path::Path::new(env!("CARGO_MANIFEST_DIR")).join("schemas/tables");
+    let dir = crate::util::repo_root().join("schemas/tables");
     let mut embedded: Vec<String> = tables::all().iter().map(|t| t.name.clone()).collect();
     embedded.sort();
     assert_eq!(

@@ -1,7 +1,7 @@
 //! The experiment definition file and `init`.
 
-use fieldcage::model::*;
-use fieldcage::setup;
+use fieldcage_core::model::*;
+use fieldcage_core::setup;
 
 use crate::util::{Temp, demo_definition_with, store_with};
 
@@ -188,7 +188,7 @@ fn builtin_scales_carry_the_published_midpoints() {
             ("6", 97.5)
         ])
     );
-    // Braun-Blanquet classes; midpoints from memory (REFERENCES.md section 1).
+    // Braun-Blanquet classes; midpoints from memory (docs/methods.md section 1).
     assert_eq!(
         mid("braun-blanquet"),
         pairs(&[

@@ -1,7 +1,7 @@
 //! Opening, durable settings and migrations.
 
-use fieldcage::Store;
-use fieldcage::store::migrations::{self, MIGRATIONS};
+use fieldcage_core::Store;
+use fieldcage_core::store::migrations::{self, MIGRATIONS};
 use rusqlite::Connection;
 
 use crate::util::Temp;
@@ -20,7 +20,7 @@ fn durable_settings_are_in_force_after_open() {
     let fk: i64 = conn
         .query_row("PRAGMA foreign_keys", [], |r| r.get(0))
         .unwrap();
-    // WAL + synchronous=FULL (2) + foreign keys on: the durability rules of DESIGN.md.
+    // WAL + synchronous=FULL (2) + foreign keys on: the durability rules of docs/methods.md §10.2.
     assert_eq!((mode.as_str(), sync, fk), ("wal", 2, 1));
 }
 
@@ -35,7 +35,7 @@ fn migrations_bring_an_empty_file_to_the_latest_version() {
     let mut names = crate::util::table_names(&store);
     // The data tables (schemas/tables), then this device's own bookkeeping:
     // identity, change log and the sync tables of 0003_sync.
-    names.retain(|n| fieldcage::tables::get(n).is_none());
+    names.retain(|n| fieldcage_core::tables::get(n).is_none());
     assert_eq!(
         names,
         [
@@ -59,7 +59,7 @@ fn migrations_bring_an_empty_file_to_the_latest_version() {
             |r| r.get(0),
         )
         .unwrap();
-    assert_eq!(data, fieldcage::tables::all().len() as i64 + 10);
+    assert_eq!(data, fieldcage_core::tables::all().len() as i64 + 10);
 }
 
 #[test]
@@ -139,7 +139,7 @@ fn the_change_log_rebuilds_keep_every_entry_and_pack_each_insert() {
         conn.execute_batch("PRAGMA user_version = 4").unwrap();
     }
     let store = Store::open(&path).unwrap();
-    let kept: Vec<_> = fieldcage::store::log::all_entries(store.conn())
+    let kept: Vec<_> = fieldcage_core::store::log::all_entries(store.conn())
         .unwrap()
         .into_iter()
         .map(|c| {
@@ -215,7 +215,10 @@ fn the_change_log_rebuilds_keep_every_entry_and_pack_each_insert() {
     // The reason for 0005: storing an entry builds no temporary b-tree.
     let opcodes: Vec<String> = store
         .conn()
-        .prepare(&format!("EXPLAIN {}", fieldcage::store::log::INSERT_SQL))
+        .prepare(&format!(
+            "EXPLAIN {}",
+            fieldcage_core::store::log::INSERT_SQL
+        ))
         .unwrap()
         .query_map(
             rusqlite::params_from_iter(std::iter::repeat_n(rusqlite::types::Null, 9)),
@@ -298,7 +301,7 @@ fn a_reader_sees_one_snapshot_and_cannot_write() {
     let mut store = crate::util::demo_store(&tmp);
     let reader = Store::open_reader(store.path()).unwrap();
     assert_eq!(reader.device_id(), store.device_id());
-    let cover = fieldcage::tables::get("cover_record").unwrap();
+    let cover = fieldcage_core::tables::get("cover_record").unwrap();
     let id: String = store
         .conn()
         .query_row("SELECT id FROM cover_record ORDER BY id LIMIT 1", [], |r| {

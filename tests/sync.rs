@@ -3,15 +3,15 @@
 //! that are wrong lose nothing, and damaged, duplicated or contradictory
 //! files are refused or recognised — never half applied.
 //!
-//! Check values here are behaviours of the design (DESIGN.md "Sync"), not
+//! Check values here are behaviours of the design (docs/methods.md §10.1), not
 //! published numbers; dates and counts are invented for the tests.
 
 use std::fs;
 use std::path::{Path, PathBuf};
 
-use fieldcage::model::*;
-use fieldcage::sync::{self, ConflictChoice, ConflictKind, SkipKind};
-use fieldcage::{Error, tables};
+use fieldcage_core::model::*;
+use fieldcage_core::sync::{self, ConflictChoice, ConflictKind, SkipKind};
+use fieldcage_core::{Error, tables};
 use rusqlite::types::Value;
 
 use crate::util::{Device, SEASON_MILLIS, Temp, Tiny, data_snapshot, fast_temp, snapshot};
@@ -87,13 +87,13 @@ fn a_tablet_initialised_from_the_demo_definition_syncs_to_the_demo_tables() {
     let mut demo = crate::util::demo_store(&tmp);
     sync::sync_once(&mut demo, &target).unwrap();
     let mut second = tmp.store("second.db");
-    let def = fieldcage::demo::definition().unwrap();
-    fieldcage::setup::init(&mut second, &def, fieldcage::demo::LAYOUT_SEED).unwrap();
+    let def = fieldcage_core::demo::definition().unwrap();
+    fieldcage_core::setup::init(&mut second, &def, fieldcage_core::demo::LAYOUT_SEED).unwrap();
     let report = sync::sync_once(&mut second, &target).unwrap();
     assert_eq!(report.applied.len(), 1, "{report}");
     assert_eq!(report.open_conflicts, 0, "identical setup rows agree");
-    fieldcage::export::export(&demo, &tmp.path("a")).unwrap();
-    fieldcage::export::export(&second, &tmp.path("b")).unwrap();
+    fieldcage_core::export::export(&demo, &tmp.path("a")).unwrap();
+    fieldcage_core::export::export(&second, &tmp.path("b")).unwrap();
     for schema in tables::all() {
         let name = format!("{}.csv", schema.name);
         assert_eq!(
@@ -481,7 +481,7 @@ fn a_database_restored_onto_a_second_tablet_is_refused_with_an_explanation() {
     a.store.backup_to(tmp.path("copy.db")).unwrap();
     let clock = crate::util::TestClock::at(SEASON_MILLIS + HOUR);
     let mut copy = Device {
-        store: fieldcage::Store::open_with_clock(tmp.path("copy.db"), clock.clock()).unwrap(),
+        store: fieldcage_core::Store::open_with_clock(tmp.path("copy.db"), clock.clock()).unwrap(),
         clock,
     };
     assert_eq!(copy.store.device_id(), a.store.device_id());
@@ -527,7 +527,7 @@ fn a_reused_seq_with_other_content_is_refused_by_the_other_devices() {
     a.store.backup_to(tmp.path("copy.db")).unwrap();
     let clock = crate::util::TestClock::at(SEASON_MILLIS + HOUR);
     let mut copy = Device {
-        store: fieldcage::Store::open_with_clock(tmp.path("copy.db"), clock.clock()).unwrap(),
+        store: fieldcage_core::Store::open_with_clock(tmp.path("copy.db"), clock.clock()).unwrap(),
         clock,
     };
     let mut c = Device::empty(&tmp, "c", SEASON_MILLIS);
@@ -704,7 +704,7 @@ fn a_clock_set_back_after_a_reboot_keeps_the_order_of_edits() {
     drop(a.store);
     let clock = crate::util::TestClock::at(SEASON_MILLIS - 2 * DAY);
     let mut a = Device {
-        store: fieldcage::Store::open_with_clock(&path, clock.clock()).unwrap(),
+        store: fieldcage_core::Store::open_with_clock(&path, clock.clock()).unwrap(),
         clock,
     };
     set_alive(&mut a, x, 9);
@@ -874,7 +874,7 @@ fn a_reused_seq_with_another_hash_is_refused_naming_the_file() {
     let mut case = file_case();
     assert_eq!(case.observer.sync(&case.target).applied.len(), 1);
     // Another valid change-set for the same device and seq range.
-    let cs = fieldcage::sync::changeset::decode(&case.bytes).unwrap();
+    let cs = fieldcage_core::sync::changeset::decode(&case.bytes).unwrap();
     let mut changes = cs.changes.clone();
     for c in &mut changes {
         if c.field == Some("alive") {
@@ -882,7 +882,7 @@ fn a_reused_seq_with_another_hash_is_refused_naming_the_file() {
         }
     }
     let (other, _) =
-        fieldcage::sync::changeset::encode(&cs.device_id, &cs.device_name, &cs.seen, &changes)
+        fieldcage_core::sync::changeset::encode(&cs.device_id, &cs.device_name, &cs.seen, &changes)
             .unwrap();
     let sample = case.sample.clone();
     fs::write(&sample, &other).unwrap();
@@ -903,11 +903,11 @@ fn two_versions_of_one_change_set_that_both_arrive_are_both_refused() {
     a.sync(&target);
     let sample = own_files(&target, &a).pop().unwrap();
     let bytes = fs::read(&sample).unwrap();
-    let cs = fieldcage::sync::changeset::decode(&bytes).unwrap();
+    let cs = fieldcage_core::sync::changeset::decode(&bytes).unwrap();
     let mut changes = cs.changes.clone();
     changes[0].hlc += 1;
     let (other, _) =
-        fieldcage::sync::changeset::encode(&cs.device_id, "a", &cs.seen, &changes).unwrap();
+        fieldcage_core::sync::changeset::encode(&cs.device_id, "a", &cs.seen, &changes).unwrap();
     let twin = sample.with_file_name("twin.csv");
     fs::write(&twin, other).unwrap();
     let mut b = Device::empty(&tmp, "b", SEASON_MILLIS);
@@ -946,7 +946,7 @@ fn foreign_misplaced_and_newer_files_are_refused_with_the_reason() {
         &newer,
         format!(
             "{body}sha256,{}\n",
-            fieldcage::sync::changeset::sha256_hex(body.as_bytes())
+            fieldcage_core::sync::changeset::sha256_hex(body.as_bytes())
         ),
     )
     .unwrap();
@@ -989,7 +989,7 @@ fn a_change_set_after_a_gap_waits_and_applies_once_the_gap_is_filled() {
     let mut by_seq: Vec<(i64, PathBuf)> = files
         .iter()
         .map(|f| {
-            let n = fieldcage::sync::changeset::seq_of_file_name(
+            let n = fieldcage_core::sync::changeset::seq_of_file_name(
                 &f.file_name().unwrap().to_string_lossy(),
             )
             .unwrap();
@@ -1047,11 +1047,11 @@ fn the_format_file_describes_every_row_written() {
     set_alive(&mut a, x, 2);
     a.sync(&target);
     let json: serde_json::Value =
-        serde_json::from_str(fieldcage::sync::changeset::SCHEMA_JSON).unwrap();
+        serde_json::from_str(fieldcage_core::sync::changeset::SCHEMA_JSON).unwrap();
     let fields = json["fields"].as_array().unwrap();
     assert_eq!(
         json["fieldcageFile"]["version"].as_i64(),
-        Some(fieldcage::sync::changeset::format_version())
+        Some(fieldcage_core::sync::changeset::format_version())
     );
     let mut ops = std::collections::BTreeSet::new();
     for file in own_files(&target, &a) {
@@ -1164,7 +1164,7 @@ fn rows_left_referring_to_a_deleted_or_hidden_row_are_listed_and_settled() {
         .iter()
         .find(|c| c.kind == ConflictKind::Orphan && c.field.as_deref() == Some("visit_id"))
         .unwrap();
-    assert_eq!(on_visit.current.op, fieldcage::store::Op::Delete);
+    assert_eq!(on_visit.current.op, fieldcage_core::store::Op::Delete);
     assert!(on_visit.current.is_local && !on_visit.other.is_local);
     sync::resolve_conflict(&mut a.store, &on_visit.key, ConflictChoice::TakeOther).unwrap();
     assert!(
@@ -1197,11 +1197,11 @@ fn rows_left_referring_to_a_deleted_or_hidden_row_are_listed_and_settled() {
 fn tablets_set_up_with_different_seeds_are_told_so() {
     let tmp = Temp::new();
     let target = target(&tmp);
-    let def = fieldcage::demo::definition().unwrap();
+    let def = fieldcage_core::demo::definition().unwrap();
     let mut a = tmp.store("a.db");
     let mut b = tmp.store("b.db");
-    fieldcage::setup::init(&mut a, &def, 1).unwrap();
-    fieldcage::setup::init(&mut b, &def, 2).unwrap();
+    fieldcage_core::setup::init(&mut a, &def, 1).unwrap();
+    fieldcage_core::setup::init(&mut b, &def, 2).unwrap();
     sync::sync_once(&mut a, &target).unwrap();
     let r = sync::sync_once(&mut b, &target).unwrap();
     assert!(r.warnings.iter().any(|w| w.contains("same seed")), "{r}");
@@ -1213,7 +1213,7 @@ fn tablets_set_up_with_different_seeds_are_told_so() {
 /// references fail only at commit must not take the others down with it.
 #[test]
 fn a_change_set_refused_at_commit_leaves_the_others_of_its_batch_applied() {
-    use fieldcage::sync::changeset::{self, Change};
+    use fieldcage_core::sync::changeset::{self, Change};
     let tmp = fast_temp();
     let target = target(&tmp);
     let mut a = Device::tiny(&tmp, "a", SEASON_MILLIS);
@@ -1242,10 +1242,10 @@ fn a_change_set_refused_at_commit_leaves_the_others_of_its_batch_applied() {
         .enumerate()
         .map(|(i, (field, v))| Change {
             seq: i as i64 + 1,
-            hlc: fieldcage::store::Hlc::new(SEASON_MILLIS, 0).0,
+            hlc: fieldcage_core::store::Hlc::new(SEASON_MILLIS, 0).0,
             table: "census",
             row_id: row.clone(),
-            op: fieldcage::store::Op::Insert,
+            op: fieldcage_core::store::Op::Insert,
             field: Some(field),
             old_value: Value::Null,
             new_value: v,

@@ -3,7 +3,7 @@
 //! value, conflicts settled as keep mine / take theirs, two real servers on
 //! loopback exchanging edits through a shared folder, and automatic sync.
 //!
-//! The expected values are behaviours of the design (DESIGN.md "Sync"); the
+//! The expected values are behaviours of the design (docs/methods.md §10.1); the
 //! dates and counts are invented for the tests.
 
 use std::path::{Path, PathBuf};
@@ -12,9 +12,9 @@ use std::time::{Duration, Instant};
 
 use axum::body::Body;
 use axum::http::{Request, StatusCode};
-use fieldcage::server::{Guard, router};
-use fieldcage::service::Service;
-use fieldcage::service::auto_sync::{AutoSync, Look, Watch};
+use fieldcage_ops::Service;
+use fieldcage_ops::auto_sync::{AutoSync, Look, Watch};
+use fieldcage_server::{Guard, router};
 use http_body_util::BodyExt;
 use serde_json::{Value, json};
 use tower::ServiceExt;
@@ -81,7 +81,7 @@ impl Tablet {
     }
 
     fn stored(&self) -> String {
-        snapshot(&fieldcage::Store::open(&self.db).unwrap())
+        snapshot(&fieldcage_core::Store::open(&self.db).unwrap())
     }
 }
 
@@ -167,7 +167,7 @@ async fn settings_are_saved_per_database_and_bad_input_names_the_field() {
     assert_eq!(overview["device_name"], "Tablet North");
 
     // Kept in this database: a second service on it sees the same settings.
-    let reopened = Service::new(fieldcage::Store::open(&t.db).unwrap());
+    let reopened = Service::new(fieldcage_core::Store::open(&t.db).unwrap());
     let again = reopened.call("settings", json!({})).unwrap();
     assert_eq!(again["sync_target"], target.to_str().unwrap());
     assert_eq!(again["device_name"], "Tablet North");
@@ -274,14 +274,14 @@ async fn the_sync_target_is_local_it_is_neither_exported_nor_sent() {
     std::fs::create_dir(&elsewhere).unwrap();
     set_target(&b, &elsewhere).await;
     {
-        let mut store = fieldcage::Store::open(&b.db).unwrap();
-        fieldcage::sync::sync_once(&mut store, &shared).unwrap();
+        let mut store = fieldcage_core::Store::open(&b.db).unwrap();
+        fieldcage_core::sync::sync_once(&mut store, &shared).unwrap();
     }
     let settings = b.ok("settings", json!({})).await;
     assert_eq!(settings["sync_target"], elsewhere.to_str().unwrap());
     // And the export holds no trace of it.
     let out = a.tmp.path("export");
-    fieldcage::export::export(&fieldcage::Store::open(&a.db).unwrap(), &out).unwrap();
+    fieldcage_core::export::export(&fieldcage_core::Store::open(&a.db).unwrap(), &out).unwrap();
     for file in std::fs::read_dir(&out).unwrap() {
         let path = file.unwrap().path();
         if path.is_file() {
@@ -573,8 +573,8 @@ async fn two_servers_sharing_a_folder_see_each_others_edits() {
     }
     // Both hold the same data.
     assert_eq!(
-        crate::util::data_snapshot(&fieldcage::Store::open(&a.db).unwrap()),
-        crate::util::data_snapshot(&fieldcage::Store::open(&b.db).unwrap())
+        crate::util::data_snapshot(&fieldcage_core::Store::open(&a.db).unwrap()),
+        crate::util::data_snapshot(&fieldcage_core::Store::open(&b.db).unwrap())
     );
 }
 
@@ -592,7 +592,7 @@ async fn a_look_syncs_only_when_the_target_is_back_and_something_is_new() {
     set_target(&b, &shared).await;
     assert_eq!(watch.look(&a.service), Look::Synced, "the setup is pending");
     let runs = |t: &Tablet| -> i64 {
-        fieldcage::Store::open(&t.db)
+        fieldcage_core::Store::open(&t.db)
             .unwrap()
             .conn()
             .query_row("SELECT count(*) FROM sync_run", [], |r| r.get(0))

@@ -11,10 +11,10 @@
 use std::collections::BTreeSet;
 use std::fs;
 
-use fieldcage::model::*;
-use fieldcage::sync::changeset::{self, ChangeSet};
-use fieldcage::sync::{self, ApplyResult, ConflictChoice, SyncOptions};
-use fieldcage::tables;
+use fieldcage_core::model::*;
+use fieldcage_core::sync::changeset::{self, ChangeSet};
+use fieldcage_core::sync::{self, ApplyResult, ConflictChoice, SyncOptions};
+use fieldcage_core::tables;
 
 use crate::util::{Device, SEASON_MILLIS, Temp, Tiny, data_snapshot, fast_temp, fixed_id};
 
@@ -32,7 +32,7 @@ fn census(n: u64, visit: usize, alive: i64) -> Census {
     }
 }
 
-fn notes<R: fieldcage::store::Record + Clone>(
+fn notes<R: fieldcage_core::store::Record + Clone>(
     d: &mut Device,
     id: uuid::Uuid,
     set: impl Fn(&mut R),

@@ -10,7 +10,7 @@
 //! takes what each device knew from the test's own record of which
 //! change-sets each device had applied (not from the library's bookkeeping),
 //! and computes per-field last-writer-wins (hybrid logical clock, ties by
-//! device id) and conflicts by brute force. The rules are DESIGN.md "Sync"
+//! device id) and conflicts by brute force. The rules are docs/methods.md §10.1
 //! (common practice for per-field last-writer-wins replication; no
 //! published check values apply).
 
@@ -18,11 +18,11 @@ use std::collections::{BTreeMap, BTreeSet};
 use std::fs;
 use std::path::PathBuf;
 
-use fieldcage::model::*;
-use fieldcage::store::Op;
-use fieldcage::sync::changeset::{self, ChangeSet};
-use fieldcage::sync::{self, ConflictChoice};
-use fieldcage::tables;
+use fieldcage_core::model::*;
+use fieldcage_core::store::Op;
+use fieldcage_core::sync::changeset::{self, ChangeSet};
+use fieldcage_core::sync::{self, ConflictChoice};
+use fieldcage_core::tables;
 use proptest::prelude::*;
 use rand::seq::SliceRandom;
 use rand::{Rng, SeedableRng};
@@ -277,7 +277,7 @@ impl Scenario {
 }
 
 fn last_seq(d: &Device) -> i64 {
-    fieldcage::store::log::last_seq(d.store.conn(), d.store.device_id())
+    fieldcage_core::store::log::last_seq(d.store.conn(), d.store.device_id())
         .unwrap()
         .unwrap_or(0)
 }
@@ -484,7 +484,7 @@ pub fn model(entries: &[Entry], k: &Knowledge) -> Expected {
 }
 
 /// What a store holds, in the model's shape.
-pub fn observed(store: &fieldcage::Store) -> Expected {
+pub fn observed(store: &fieldcage_core::Store) -> Expected {
     let mut out = BTreeMap::new();
     for schema in tables::all() {
         let mut stmt = store
@@ -539,8 +539,8 @@ pub fn observed(store: &fieldcage::Store) -> Expected {
 }
 
 /// Every change-log entry of a store, in the model's shape.
-pub fn logged(store: &fieldcage::Store) -> Vec<Entry> {
-    fieldcage::store::log::all_entries(store.conn())
+pub fn logged(store: &fieldcage_core::Store) -> Vec<Entry> {
+    fieldcage_core::store::log::all_entries(store.conn())
         .unwrap()
         .into_iter()
         .map(|c| Entry {
@@ -558,7 +558,7 @@ pub fn logged(store: &fieldcage::Store) -> Vec<Entry> {
 }
 
 /// The entries of the change-sets a store has applied, plus its own.
-fn expected_log(store: &fieldcage::Store, all: &[Entry]) -> Vec<Entry> {
+fn expected_log(store: &fieldcage_core::Store, all: &[Entry]) -> Vec<Entry> {
     let ranges: Vec<(String, i64)> = store
         .conn()
         .prepare("SELECT device_id, max(last_seq) FROM sync_applied GROUP BY device_id")
@@ -640,7 +640,7 @@ pub fn replay(
 }
 
 /// The store holds exactly the model of the entries it has applied.
-fn check(store: &fieldcage::Store, all: &[Entry], k: &Knowledge) -> Result<(), TestCaseError> {
+fn check(store: &fieldcage_core::Store, all: &[Entry], k: &Knowledge) -> Result<(), TestCaseError> {
     let log = logged(store);
     let expected_log = expected_log(store, all);
     prop_assert!(log == expected_log, "the log holds whole change-sets only");
@@ -723,7 +723,7 @@ fn the_model_counts_one_conflict_per_concurrent_edit() {
     };
     let mut k = Knowledge::new();
     let entries = vec![e("a", 1, 10, 1), e("b", 1, 20, 2)];
-    // Check value: design rule (DESIGN.md "Sync"), not a published number.
+    // Check value: design rule (docs/methods.md §10.1), not a published number.
     assert_eq!(model(&entries, &k).conflicts.len(), 1);
     k.insert(
         ("c".into(), 1),

@@ -8,11 +8,10 @@ mod util;
 
 mod analysis;
 mod api;
-mod bench;
+mod architecture;
 mod changelog;
 mod checks;
 mod cli;
-mod crash;
 mod demo;
 mod faults;
 mod fuzz_corpus;

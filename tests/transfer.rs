@@ -6,10 +6,10 @@ use std::fs;
 use std::path::{Path, PathBuf};
 
 use chrono::{DateTime, NaiveDate};
-use fieldcage::export::{self, ExportSummary};
-use fieldcage::import::{self, MAX_FILE_BYTES};
-use fieldcage::model::*;
-use fieldcage::{Store, tables};
+use fieldcage_core::export::{self, ExportSummary};
+use fieldcage_core::import::{self, MAX_FILE_BYTES};
+use fieldcage_core::model::*;
+use fieldcage_core::{Store, tables};
 use tempfile::TempDir;
 
 /// A small experiment recorded through the public write path.
@@ -81,7 +81,7 @@ fn fixture() -> Fixture {
                 y_m: None,
                 notes: None,
             })?;
-            let taxon = |w: &mut fieldcage::store::Writer<'_>,
+            let taxon = |w: &mut fieldcage_core::store::Writer<'_>,
                          code: &str,
                          name: &str,
                          role: Role,

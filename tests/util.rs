@@ -1,56 +1,18 @@
 //! Shared fixtures.
 
-use std::path::PathBuf;
+use std::path::{Path, PathBuf};
 
-use fieldcage::Store;
-use fieldcage::setup::{self, Definition};
+use fieldcage_core::Store;
 use rusqlite::types::Value;
 
-/// A temporary folder that lives as long as the value.
-pub struct Temp {
-    pub dir: tempfile::TempDir,
-}
+pub use fieldcage_testkit::fixture::{
+    Temp, demo_definition_with, demo_store, fast_temp, store_with,
+};
 
-impl Temp {
-    pub fn new() -> Temp {
-        Temp {
-            dir: tempfile::tempdir().expect("temp dir"),
-        }
-    }
-
-    pub fn path(&self, name: &str) -> PathBuf {
-        self.dir.path().join(name)
-    }
-
-    /// A new empty store in this folder.
-    pub fn store(&self, name: &str) -> Store {
-        Store::open(self.path(name)).expect("open store")
-    }
-}
-
-/// The demo season, built by the same code as `fieldcage demo`.
-pub fn demo_store(tmp: &Temp) -> Store {
-    let mut store = tmp.store("demo.db");
-    fieldcage::demo::build(&mut store).expect("demo builds");
-    store
-}
-
-/// The demo definition with parts of its text replaced.
-pub fn demo_definition_with(replacements: &[(&str, &str)]) -> Result<Definition, fieldcage::Error> {
-    let mut text = fieldcage::demo::DEFINITION.to_owned();
-    for (from, to) in replacements {
-        assert!(text.contains(from), "the demo definition has no {from:?}");
-        text = text.replacen(from, to, 1);
-    }
-    setup::definition::parse(std::path::Path::new("test.toml"), &text)
-}
-
-/// A store initialised from the demo definition with some text replaced.
-pub fn store_with(tmp: &Temp, replacements: &[(&str, &str)], seed: u64) -> Store {
-    let def = demo_definition_with(replacements).expect("definition is valid");
-    let mut store = tmp.store("variant.db");
-    setup::init(&mut store, &def, seed).expect("init");
-    store
+/// The repository's top folder (the tests belong to `crates/cli`).
+pub fn repo_root() -> &'static Path {
+    static ROOT: std::sync::OnceLock<PathBuf> = std::sync::OnceLock::new();
+    ROOT.get_or_init(|| Path::new(env!("CARGO_MANIFEST_DIR")).join("../.."))
 }
 
 /// The first column of every row a query returns.
@@ -80,7 +42,7 @@ pub fn log_entries(store: &Store) {
     let mut insert = conn
         .prepare("INSERT INTO temp.log_entry VALUES (?1, ?2, ?3, ?4, ?5, ?6, ?7, ?8, ?9)")
         .unwrap();
-    for c in fieldcage::store::log::all_entries(conn).unwrap() {
+    for c in fieldcage_core::store::log::all_entries(conn).unwrap() {
         let e = c.entry;
         insert
             .execute(rusqlite::params![
@@ -149,7 +111,7 @@ pub fn count(store: &Store, table: &str) -> i64 {
 /// holding the same data agree on.
 pub fn data_snapshot(store: &Store) -> String {
     let mut out = String::new();
-    for schema in fieldcage::tables::all() {
+    for schema in fieldcage_core::tables::all() {
         out.push_str(&format!("== {}\n", schema.name));
         let mut stmt = store
             .conn()
@@ -170,19 +132,6 @@ pub fn data_snapshot(store: &Store) -> String {
     out
 }
 
-/// A temporary folder on a RAM disk when the system has one (`/dev/shm`):
-/// sync tests flush files and databases thousands of times, which costs
-/// nothing there.
-pub fn fast_temp() -> Temp {
-    let shm = std::path::Path::new("/dev/shm");
-    let dir = if shm.is_dir() {
-        tempfile::tempdir_in(shm).expect("temp dir in /dev/shm")
-    } else {
-        tempfile::tempdir().expect("temp dir")
-    };
-    Temp { dir }
-}
-
 /// A clock a test can set: milliseconds since the Unix epoch.
 #[derive(Clone)]
 pub struct TestClock(pub std::sync::Arc<std::sync::atomic::AtomicI64>);
@@ -199,7 +148,7 @@ impl TestClock {
             .fetch_add(millis, std::sync::atomic::Ordering::SeqCst);
     }
 
-    pub fn clock(&self) -> fieldcage::store::Clock {
+    pub fn clock(&self) -> fieldcage_core::store::Clock {
         let c = self.0.clone();
         std::sync::Arc::new(move || c.load(std::sync::atomic::Ordering::SeqCst))
     }
@@ -222,37 +171,37 @@ pub fn fixed_id(n: u64) -> uuid::Uuid {
 pub struct Tiny;
 
 impl Tiny {
-    pub fn experiment() -> fieldcage::model::ExperimentId {
-        fieldcage::model::ExperimentId(fixed_id(1))
+    pub fn experiment() -> fieldcage_core::model::ExperimentId {
+        fieldcage_core::model::ExperimentId(fixed_id(1))
     }
-    pub fn treatments() -> [fieldcage::model::TreatmentId; 2] {
+    pub fn treatments() -> [fieldcage_core::model::TreatmentId; 2] {
         [
-            fieldcage::model::TreatmentId(fixed_id(4)),
-            fieldcage::model::TreatmentId(fixed_id(5)),
+            fieldcage_core::model::TreatmentId(fixed_id(4)),
+            fieldcage_core::model::TreatmentId(fixed_id(5)),
         ]
     }
-    pub fn cages() -> [fieldcage::model::EnclosureId; 2] {
+    pub fn cages() -> [fieldcage_core::model::EnclosureId; 2] {
         [
-            fieldcage::model::EnclosureId(fixed_id(6)),
-            fieldcage::model::EnclosureId(fixed_id(7)),
+            fieldcage_core::model::EnclosureId(fixed_id(6)),
+            fieldcage_core::model::EnclosureId(fixed_id(7)),
         ]
     }
-    pub fn taxa() -> [fieldcage::model::TaxonId; 2] {
+    pub fn taxa() -> [fieldcage_core::model::TaxonId; 2] {
         [
-            fieldcage::model::TaxonId(fixed_id(8)),
-            fieldcage::model::TaxonId(fixed_id(9)),
+            fieldcage_core::model::TaxonId(fixed_id(8)),
+            fieldcage_core::model::TaxonId(fixed_id(9)),
         ]
     }
-    pub fn visits() -> [fieldcage::model::VisitId; 2] {
+    pub fn visits() -> [fieldcage_core::model::VisitId; 2] {
         [
-            fieldcage::model::VisitId(fixed_id(10)),
-            fieldcage::model::VisitId(fixed_id(11)),
+            fieldcage_core::model::VisitId(fixed_id(10)),
+            fieldcage_core::model::VisitId(fixed_id(11)),
         ]
     }
 
     /// Write the tiny experiment through the write path.
     pub fn write(store: &mut Store) {
-        use fieldcage::model::*;
+        use fieldcage_core::model::*;
         store
             .write(|w| {
                 let eid = Tiny::experiment();
@@ -382,8 +331,8 @@ impl Device {
     }
 
     /// One sync run against `target`.
-    pub fn sync(&mut self, target: &std::path::Path) -> fieldcage::sync::SyncReport {
-        fieldcage::sync::sync_once(&mut self.store, target).unwrap()
+    pub fn sync(&mut self, target: &std::path::Path) -> fieldcage_core::sync::SyncReport {
+        fieldcage_core::sync::sync_once(&mut self.store, target).unwrap()
     }
 }
 
@@ -394,7 +343,7 @@ fn template() -> std::sync::MutexGuard<'static, rusqlite::Connection> {
     TEMPLATE
         .get_or_init(|| {
             let mut conn = rusqlite::Connection::open_in_memory().unwrap();
-            fieldcage::store::migrations::migrate(&mut conn).unwrap();
+            fieldcage_core::store::migrations::migrate(&mut conn).unwrap();
             std::sync::Mutex::new(conn)
         })
         .lock()

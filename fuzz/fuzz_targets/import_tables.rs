@@ -1,7 +1,7 @@
 //! Fuzz the table importer with sets of table files; the invariants are in
-//! `fieldcage::fuzz_checks::import_file_set`.
+//! `fieldcage_testkit::fuzz_checks::import_file_set`.
 #![no_main]
 
 libfuzzer_sys::fuzz_target!(|data: &[u8]| {
-    fieldcage::fuzz_checks::import_file_set(data);
+    fieldcage_testkit::fuzz_checks::import_file_set(data);
 });

@@ -7,7 +7,7 @@
 //! `--db PATH` says. `--demo` builds the invented demo season into a new
 //! database; `--today YYYY-MM-DD` opens the route on a fixed field day.
 //! On launch the app starts the core's automatic sync
-//! ([`fieldcage::service::auto_sync`]) on the same operation set: it syncs
+//! ([`fieldcage_ops::auto_sync`]) on the same operation set: it syncs
 //! with the folder chosen in Settings whenever it is in reach;
 //! `--sync-every SECS` sets how often it looks (0 = never).
 
@@ -15,9 +15,9 @@ use std::path::PathBuf;
 use std::sync::Arc;
 use std::time::Duration;
 
-use fieldcage::service::auto_sync::{self, AutoSync};
-use fieldcage::service::{Problem, Service};
-use fieldcage::{Store, demo};
+use fieldcage_ops::auto_sync::{self, AutoSync};
+use fieldcage_ops::core::{Store, demo};
+use fieldcage_ops::{Problem, ProblemCode, Service};
 use serde_json::Value;
 use tauri::{Manager, Runtime};
 
@@ -32,12 +32,7 @@ async fn call(
     // The store blocks on disk I/O; keep it off the UI thread.
     tauri::async_runtime::spawn_blocking(move || service.call(&op, args))
         .await
-        .map_err(|e| Problem {
-            code: "internal",
-            message: format!("the operation failed: {e}"),
-            field: None,
-            value: None,
-        })?
+        .map_err(|e| Problem::new(ProblemCode::Internal, format!("the operation failed: {e}")))?
 }
 
 /// Register the command surface on any runtime (the tests use the mock one).
@@ -108,7 +103,10 @@ impl Options {
 }
 
 /// Open the database the options name, building the demo season if asked.
-pub fn open_service(db: &std::path::Path, options: &Options) -> fieldcage::Result<Service> {
+pub fn open_service(
+    db: &std::path::Path,
+    options: &Options,
+) -> fieldcage_ops::core::Result<Service> {
     let store = if options.demo {
         demo::open_or_build(db)?
     } else {
@@ -127,7 +125,7 @@ pub fn manage_service<R: Runtime, M: Manager<R>>(
     app: &M,
     service: Service,
     options: &Options,
-) -> fieldcage::Result<()> {
+) -> fieldcage_ops::core::Result<()> {
     let service = Arc::new(service);
     if let Some(every) = options.sync_every {
         app.manage(AutoSync::start(Arc::clone(&service), every)?);

@@ -1,7 +1,7 @@
 """fieldcage's analysis checked against independent general-purpose libraries.
 
-The real Rust functions are called through the hidden `fieldcage analysis-probe`
-command (one JSON request on stdin, the answer on stdout; src/analysis/probe.rs)
+The real Rust functions are called through the test kit's `fieldcage-probe`
+command (one JSON request on stdin, the answer on stdout; crates/testkit/src/probe.rs)
 and compared on random data with:
 - scipy.stats.entropy and numpy for Shannon, Pielou, Simpson and Hill numbers
   (Hill 1973; Jost 2006), tolerance 1e-9;
@@ -22,13 +22,13 @@ from lifelines import KaplanMeierFitter
 from scipy import stats
 
 ROOT = Path(__file__).resolve().parents[2]
-BIN = Path(os.environ.get("FIELDCAGE_BIN", ROOT / "target" / "debug" / "fieldcage"))
+PROBE = Path(os.environ.get("FIELDCAGE_PROBE", ROOT / "target" / "debug" / "fieldcage-probe"))
 TOL = 1e-9
 
 
 def probe(request: dict) -> dict:
     out = subprocess.run(
-        [BIN, "analysis-probe"], input=json.dumps(request), capture_output=True, text=True, check=True
+        [PROBE], input=json.dumps(request), capture_output=True, text=True, check=True
     )
     return json.loads(out.stdout)
 

@@ -1,0 +1,355 @@
+//! A cage's sheet: everything it shows for one cage on one day.
+
+use std::collections::HashMap;
+
+use chrono::NaiveDate;
+use serde::{Deserialize, Serialize};
+
+use fieldcage_core::Result;
+use fieldcage_core::model::*;
+
+use crate::context::Context;
+use crate::*;
+
+impl Service {
+    /// Everything the cage sheet shows for one cage on one day.
+    pub fn sheet(&self, req: CageRequest) -> Result<Sheet> {
+        let store = self.store();
+        let ctx = Context::load(&store)?;
+        let date = self.field_date(&ctx, req.date);
+        let cage = ctx.cage(req.enclosure_id)?;
+        let visits: Vec<Visit> = store
+            .list::<Visit>()?
+            .into_iter()
+            .filter(|v| v.enclosure_id == cage.id)
+            .collect();
+        let today: Vec<Visit> = visits
+            .iter()
+            .filter(|v| v.visited_at.date_naive() == date)
+            .cloned()
+            .collect();
+        let today_ids: Vec<VisitId> = today.iter().map(|v| v.id).collect();
+        let earlier_ids: Vec<VisitId> = visits
+            .iter()
+            .filter(|v| v.visited_at.date_naive() < date)
+            .map(|v| v.id)
+            .collect();
+        let visit_day: HashMap<VisitId, NaiveDate> = visits
+            .iter()
+            .map(|v| (v.id, v.visited_at.date_naive()))
+            .collect();
+        let taxa = store.list::<Taxon>()?;
+        let plans: Vec<StockingPlan> = store
+            .list::<StockingPlan>()?
+            .into_iter()
+            .filter(|p| p.treatment_id == cage.treatment.id)
+            .collect();
+        let events: Vec<StockingEvent> = store
+            .list::<StockingEvent>()?
+            .into_iter()
+            .filter(|e| visit_day.contains_key(&e.visit_id))
+            .collect();
+        let census: Vec<Census> = store
+            .list::<Census>()?
+            .into_iter()
+            .filter(|c| visit_day.contains_key(&c.visit_id))
+            .collect();
+        let first_stocking = visits
+            .iter()
+            .filter(|v| {
+                events
+                    .iter()
+                    .any(|e| e.visit_id == v.id && e.kind == StockingKind::Initial)
+            })
+            .map(|v| v.visited_at.date_naive())
+            .min();
+        let animals: Vec<AnimalLine> = taxa
+            .iter()
+            .filter(|t| t.role != Role::Plant)
+            .map(|t| {
+                let plan = plans.iter().find(|p| p.taxon_id == t.id);
+                let sum = |kind: StockingKind| -> i64 {
+                    events
+                        .iter()
+                        .filter(|e| {
+                            e.taxon_id == t.id && e.kind == kind && visit_day[&e.visit_id] <= date
+                        })
+                        .map(|e| e.count)
+                        .sum()
+                };
+                let last = census
+                    .iter()
+                    .filter(|c| c.taxon_id == t.id && earlier_ids.contains(&c.visit_id))
+                    .max_by_key(|c| visit_day[&c.visit_id]);
+                let today_census = census
+                    .iter()
+                    .find(|c| c.taxon_id == t.id && today_ids.contains(&c.visit_id))
+                    .cloned();
+                let restock_below = plan.and_then(|p| p.restock_below);
+                let restock = match (
+                    today_census.as_ref().and_then(|c| c.alive),
+                    restock_below,
+                    plan,
+                ) {
+                    (Some(alive), Some(below), Some(p)) if alive < below => {
+                        Some(p.initial_count - alive)
+                    }
+                    _ => None,
+                };
+                AnimalLine {
+                    taxon: TaxonLine::from(t),
+                    planned: plan.map(|p| p.initial_count),
+                    restock_below,
+                    stocked: sum(StockingKind::Initial),
+                    restocked: sum(StockingKind::Restock),
+                    removed: sum(StockingKind::Removal),
+                    last_alive: last.and_then(|c| c.alive),
+                    last_date: last.map(|c| visit_day[&c.visit_id]),
+                    today: today_census,
+                    restock_suggested: restock,
+                }
+            })
+            .collect();
+        let plants: Vec<TaxonLine> = taxa
+            .iter()
+            .filter(|t| t.role == Role::Plant)
+            .map(TaxonLine::from)
+            .collect();
+        let cover_records: Vec<CoverRecord> = store
+            .list::<CoverRecord>()?
+            .into_iter()
+            .filter(|c| today_ids.contains(&c.visit_id))
+            .collect();
+        let damage_all: Vec<DamageRecord> = store
+            .list::<DamageRecord>()?
+            .into_iter()
+            .filter(|d| visit_day.contains_key(&d.visit_id))
+            .collect();
+        let leaves: Vec<LeafLine> = store
+            .list::<TaggedLeaf>()?
+            .into_iter()
+            .filter(|l| l.enclosure_id == cage.id)
+            .map(|l| {
+                let previous = damage_all
+                    .iter()
+                    .filter(|d| d.leaf_id == l.id && earlier_ids.contains(&d.visit_id))
+                    .max_by_key(|d| visit_day[&d.visit_id])
+                    .cloned();
+                let today = damage_all
+                    .iter()
+                    .find(|d| d.leaf_id == l.id && today_ids.contains(&d.visit_id))
+                    .cloned();
+                LeafLine {
+                    taxon_code: taxa
+                        .iter()
+                        .find(|t| t.id == l.taxon_id)
+                        .map(|t| t.code.clone())
+                        .unwrap_or_default(),
+                    leaf: l,
+                    previous,
+                    today,
+                }
+            })
+            .collect();
+        let stocking_today: Vec<StockingEvent> = events
+            .into_iter()
+            .filter(|e| today_ids.contains(&e.visit_id))
+            .collect();
+        let schedule = store.list::<ScheduleEntry>()?;
+        let day = (date - ctx.experiment.start_date).num_days();
+        Ok(Sheet {
+            enclosure_id: cage.id,
+            label: cage.label.clone(),
+            block: cage.block.clone(),
+            treatment: cage.treatment.clone(),
+            date,
+            day,
+            days_since_stocking: first_stocking.map(|d| (date - d).num_days()),
+            due: schedule
+                .iter()
+                .filter(|s| s.day == day)
+                .map(|s| s.kind)
+                .collect(),
+            visits: today,
+            animals,
+            plants,
+            cover: ctx.cover.clone(),
+            damage: ctx.damage.clone(),
+            cover_records,
+            leaves,
+            stocking_today,
+        })
+    }
+}
+
+/// A request about one cage on one day.
+#[derive(Debug, Clone, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct CageRequest {
+    /// The cage.
+    pub enclosure_id: EnclosureId,
+    /// Local date (today when left out).
+    #[serde(default)]
+    pub date: Option<NaiveDate>,
+}
+
+/// A taxon as the sheet shows it.
+#[derive(Debug, Clone, Serialize)]
+pub struct TaxonLine {
+    /// Id.
+    pub id: TaxonId,
+    /// Code.
+    pub code: String,
+    /// Scientific name.
+    pub scientific_name: String,
+    /// Common name.
+    pub common_name: Option<String>,
+    /// Role.
+    pub role: Role,
+    /// Plant group.
+    pub plant_group: Option<PlantGroup>,
+}
+
+impl From<&Taxon> for TaxonLine {
+    fn from(t: &Taxon) -> TaxonLine {
+        TaxonLine {
+            id: t.id,
+            code: t.code.clone(),
+            scientific_name: t.scientific_name.clone(),
+            common_name: t.common_name.clone(),
+            role: t.role,
+            plant_group: t.plant_group,
+        }
+    }
+}
+
+/// An animal taxon on the sheet, with its stocking summary.
+#[derive(Debug, Clone, Serialize)]
+pub struct AnimalLine {
+    /// The taxon.
+    pub taxon: TaxonLine,
+    /// Planned per cage by the treatment (none = should not be here).
+    pub planned: Option<i64>,
+    /// Restock threshold.
+    pub restock_below: Option<i64>,
+    /// Stocked initially.
+    pub stocked: i64,
+    /// Added since.
+    pub restocked: i64,
+    /// Taken out.
+    pub removed: i64,
+    /// Alive at the previous census.
+    pub last_alive: Option<i64>,
+    /// Date of the previous census.
+    pub last_date: Option<NaiveDate>,
+    /// Today's census, if entered.
+    pub today: Option<Census>,
+    /// How many to add to reach the planned count, when below the threshold.
+    pub restock_suggested: Option<i64>,
+}
+
+/// A class of a scale.
+#[derive(Debug, Clone, Serialize)]
+pub struct ClassLine {
+    /// Code.
+    pub code: String,
+    /// Lower limit, %.
+    pub lower_pct: Option<f64>,
+    /// Upper limit, %.
+    pub upper_pct: Option<f64>,
+    /// Midpoint, %.
+    pub midpoint_pct: f64,
+    /// Meaning.
+    pub description: Option<String>,
+    /// Position.
+    pub sort_order: i64,
+}
+
+/// A ground category.
+#[derive(Debug, Clone, Serialize)]
+pub struct CategoryLine {
+    /// Code.
+    pub code: String,
+    /// Name.
+    pub name: String,
+}
+
+/// The cover protocol as the sheet needs it.
+#[derive(Debug, Clone, Serialize)]
+pub struct CoverInfo {
+    /// Method.
+    pub method: CoverMethod,
+    /// Layered?
+    pub layered: bool,
+    /// Pins per frame.
+    pub pins_per_frame: Option<i64>,
+    /// Hit rule.
+    pub hit_rule: Option<HitRule>,
+    /// Band around 100, points.
+    pub tolerance_pct: f64,
+    /// Scale classes (method class).
+    pub classes: Vec<ClassLine>,
+    /// Ground categories.
+    pub ground: Vec<CategoryLine>,
+}
+
+/// The damage protocol as the sheet needs it.
+#[derive(Debug, Clone, Serialize)]
+pub struct DamageInfo {
+    /// Method.
+    pub method: DamageMethod,
+    /// Tagged leaves per cage.
+    pub leaves_per_enclosure: i64,
+    /// Scale classes (method class).
+    pub classes: Vec<ClassLine>,
+}
+
+/// A tagged leaf on the sheet.
+#[derive(Debug, Clone, Serialize)]
+pub struct LeafLine {
+    /// The leaf.
+    pub leaf: TaggedLeaf,
+    /// Its plant's code.
+    pub taxon_code: String,
+    /// The latest earlier score.
+    pub previous: Option<DamageRecord>,
+    /// Today's score.
+    pub today: Option<DamageRecord>,
+}
+
+/// The cage sheet.
+#[derive(Debug, Clone, Serialize)]
+pub struct Sheet {
+    /// Cage id.
+    pub enclosure_id: EnclosureId,
+    /// Label.
+    pub label: String,
+    /// Block code.
+    pub block: String,
+    /// Treatment.
+    pub treatment: Treatment,
+    /// Field day.
+    pub date: NaiveDate,
+    /// Day of the experiment.
+    pub day: i64,
+    /// Days since the first stocking.
+    pub days_since_stocking: Option<i64>,
+    /// Kinds due today by the schedule.
+    pub due: Vec<VisitKind>,
+    /// Today's visits.
+    pub visits: Vec<Visit>,
+    /// Animals: stocking summary and census.
+    pub animals: Vec<AnimalLine>,
+    /// Plants for cover.
+    pub plants: Vec<TaxonLine>,
+    /// Cover protocol.
+    pub cover: CoverInfo,
+    /// Damage protocol.
+    pub damage: DamageInfo,
+    /// Today's cover records.
+    pub cover_records: Vec<CoverRecord>,
+    /// Tagged leaves with scores.
+    pub leaves: Vec<LeafLine>,
+    /// Today's stocking events.
+    pub stocking_today: Vec<StockingEvent>,
+}
