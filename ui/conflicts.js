@@ -5,7 +5,7 @@
 
 import { call } from './api.js';
 import { h, clear } from './dom.js';
-import { app, save, setWhere } from './app.js';
+import { app, register, save, setWhere } from './shell.js';
 import { refreshSyncState, when } from './sync.js';
 
 const WHY = {
@@ -84,3 +84,5 @@ export async function showConflicts(main) {
     h('ol', { class: 'conflicts' }, conflicts.map((c) => conflictCard(c, rerun))),
   );
 }
+
+register('conflicts', showConflicts);

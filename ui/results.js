@@ -6,7 +6,7 @@
 
 import { call } from './api.js';
 import { h, clear } from './dom.js';
-import { app, setWhere } from './app.js';
+import { app, register, setWhere } from './shell.js';
 import { lineChart, intervalPlot, marker, s, styleOf } from './chart.js';
 
 let missingAs = 'dead';
@@ -221,3 +221,5 @@ export async function showResults(main) {
     r.notes.length ? h('section', { class: 'card results', id: 'results-notes' }, h('h2', {}, 'How the data were handled'), h('ul', {}, r.notes.map((n) => h('li', {}, n)))) : null,
   );
 }
+
+register('results', showResults);

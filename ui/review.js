@@ -3,7 +3,7 @@
 
 import { call } from './api.js';
 import { h, clear } from './dom.js';
-import { app, save, setWhere } from './app.js';
+import { app, register, save, setWhere } from './shell.js';
 
 const SEVERITY = { error: 'Error', warning: 'Warning', notice: 'Notice' };
 const STATUS = { open: 'Open', fixed: 'Fixed ✓', confirmed: 'Confirmed ✓' };
@@ -66,3 +66,5 @@ export async function showReview(main) {
     [...byCage.entries()].map(([cage, flags]) => h('section', { class: 'card flags', dataset: { cage } }, h('h2', {}, `Cage ${cage}`), h('ol', {}, flags.map((f) => flagCard(f, cageIds, rerun))))),
   );
 }
+
+register('review', showReview);

@@ -1,9 +1,9 @@
 // Today's route: the cages due on the field day, block by block, with where
-// each one stands.
+// each one stands, and who observes (kept on this device).
 
 import { call } from './api.js';
 import { h, clear, fmt } from './dom.js';
-import { app, setWhere } from './app.js';
+import { app, register, setWhere } from './shell.js';
 
 const STATE_TEXT = {
   not_started: 'To do',
@@ -45,6 +45,21 @@ function cageButton(cage) {
   );
 }
 
+/** Who observes: remembered on this device and sent with each visit. */
+function observerField() {
+  const input = h('input', {
+    id: 'observer',
+    value: app.observer,
+    autocomplete: 'name',
+    placeholder: 'Your name or initials',
+    onchange: (e) => {
+      app.observer = e.target.value.trim();
+      localStorage.setItem('fieldcage-observer', app.observer);
+    },
+  });
+  return h('label', { class: 'observer' }, 'Observer ', input);
+}
+
 function safetyCard() {
   return h(
     'details',
@@ -63,7 +78,7 @@ function safetyCard() {
   );
 }
 
-export async function showRoute(main, settings) {
+export async function showRoute(main) {
   const route = await call('route', { date: app.date || undefined });
   const o = app.overview;
   setWhere(o.site, `Day ${route.day} (${route.date})`);
@@ -86,7 +101,7 @@ export async function showRoute(main, settings) {
         h('button', { onclick: () => goToDay(shiftDay(route.date, 1)), 'aria-label': 'Next day' }, '▶'),
       ),
       h('p', { class: 'progress' }, total.length ? `${done} of ${total.length} cages done today` : 'No visits due on this day.'),
-      settings,
+      observerField(),
       h('div', { class: 'row' }, h('a', { class: 'button', href: '#/review' }, "Day's-end checks"), h('a', { class: 'button', href: '#/results' }, 'Results')),
       h(
         'label',
@@ -99,3 +114,5 @@ export async function showRoute(main, settings) {
     safetyCard(),
   );
 }
+
+register('route', showRoute);

@@ -4,7 +4,7 @@
 
 import { call, Problem } from './api.js';
 import { h, clear } from './dom.js';
-import { app, save, setWhere } from './app.js';
+import { app, register, save, setWhere } from './shell.js';
 import { sync, when, refreshSyncState, syncNow } from './sync.js';
 
 const TARGET_STATE = {
@@ -96,3 +96,5 @@ export async function showSettings(main) {
     lastOutcome(sync.lastOutcome),
   );
 }
+
+register('settings', showSettings);

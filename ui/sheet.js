@@ -3,7 +3,7 @@
 
 import { call } from './api.js';
 import { h, clear, fmt } from './dom.js';
-import { app, save, setWhere, toast } from './app.js';
+import { app, register, save, setWhere, toast } from './shell.js';
 
 let sheet = null;
 let root = null;
@@ -214,3 +214,5 @@ export async function showSheet(main, enclosureId) {
   paint();
   if (!app.observer) toast('Set the observer on the route screen so visits carry your name.');
 }
+
+register('cage', showSheet, 1);

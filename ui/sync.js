@@ -1,14 +1,13 @@
 // Sync in the header: when the last sync finished, how many changes wait to
 // be sent, whether the browser has a network, open conflicts, and the
 // "Sync now" button. The server syncs on its own when the sync folder is in
-// reach; this only shows it and lets the crew start one.
+// reach; this only shows it and lets the crew start one. It reads the status
+// again after every save (the shell's 'save-ended' event); `watchSync()`
+// (called by main.js) wires it to the page, nothing runs on import.
 
 import { call } from './api.js';
 import { h, clear } from './dom.js';
-import { problemText, render, toast } from './app.js';
-
-const syncState = document.getElementById('sync-state');
-const syncNowButton = document.getElementById('sync-now');
+import { bus, problemText, render, toast } from './shell.js';
 
 /** The last status read, for the screens. */
 export const sync = { status: null, running: false, lastOutcome: null };
@@ -26,6 +25,8 @@ function plural(n, one, many) {
 }
 
 function paint() {
+  const syncState = document.getElementById('sync-state');
+  const syncNowButton = document.getElementById('sync-now');
   const s = sync.status;
   const parts = [];
   if (!navigator.onLine) parts.push(h('span', { class: 'sync-offline' }, 'No network'));
@@ -84,7 +85,8 @@ export async function syncNow() {
 }
 
 export function watchSync(everyMs = 5000) {
-  syncNowButton.addEventListener('click', syncNow);
+  document.getElementById('sync-now').addEventListener('click', syncNow);
+  bus.addEventListener('save-ended', () => refreshSyncState());
   addEventListener('online', paint);
   addEventListener('offline', paint);
   refreshSyncState();

@@ -1,35 +1,34 @@
-// fieldcage tablet UI: the shell (where am I, is everything saved, sync state),
-// the hash router and the save feedback with undo and history.
+// fieldcage tablet UI: the shell every screen imports — the shared state
+// (`app`), where am I, the save feedback with undo and history, the hash
+// router the screens register with, and `bus`, an EventTarget for news that
+// other modules listen to. It imports no screen and runs nothing on import:
+// `start()` (called by main.js) wires it to the page.
+//
+// Events on `bus`:
+//   'save-ended'  after every save, done or refused; detail { op, ok }.
 
 import { call, Problem } from './api.js';
 import { h, clear } from './dom.js';
-import { showRoute } from './route.js';
-import { showSheet } from './sheet.js';
-import { showReview } from './review.js';
-import { showResults } from './results.js';
-import { showSettings } from './settings.js';
-import { showConflicts } from './conflicts.js';
-import { refreshSyncState, watchSync } from './sync.js';
 
-const main = document.getElementById('main');
-const where = document.getElementById('where');
-const saveState = document.getElementById('save-state');
-const notice = document.getElementById('notice');
+export const bus = new EventTarget();
 
 export const app = {
   overview: null,
-  observer: localStorage.getItem('fieldcage-observer') ?? '',
+  observer: '',
   pending: 0,
   failed: false,
   /** The field day shown (YYYY-MM-DD); empty = the server's today. */
-  date: new URLSearchParams(location.search).get('date') ?? '',
+  date: '',
 };
 
+const byId = (id) => document.getElementById(id);
+
 export function setWhere(...parts) {
-  clear(where, parts.filter(Boolean).join(' · '));
+  clear(byId('where'), parts.filter(Boolean).join(' · '));
 }
 
 function paintSaveState() {
+  const saveState = byId('save-state');
   saveState.className = 'save-state';
   if (app.pending > 0) {
     saveState.classList.add('saving');
@@ -54,11 +53,13 @@ const OBSERVED = new Set(['start_visit', 'save_census', 'save_stocking', 'save_c
 export async function save(op, args, { label, table } = {}) {
   app.pending += 1;
   paintSaveState();
+  let ok = false;
   try {
     const context = {};
     if (DATED.has(op)) context.date = app.date || undefined;
     if (OBSERVED.has(op)) context.observer = app.observer || undefined;
     const result = await call(op, { ...context, ...args });
+    ok = true;
     app.failed = false;
     const record = result.record ?? result;
     if (label) toast(`Saved: ${label}`, table && record.id ? { table, id: record.id } : null);
@@ -70,7 +71,7 @@ export async function save(op, args, { label, table } = {}) {
   } finally {
     app.pending -= 1;
     paintSaveState();
-    refreshSyncState();
+    bus.dispatchEvent(new CustomEvent('save-ended', { detail: { op, ok } }));
   }
 }
 
@@ -82,6 +83,7 @@ export function problemText(e) {
 let toastTimer = null;
 /** Feedback after a save, with Undo and History for the record. */
 export function toast(text, record, isError = false) {
+  const notice = byId('notice');
   clearTimeout(toastTimer);
   const actions = [];
   if (record) {
@@ -106,61 +108,40 @@ async function undo(record) {
   }
 }
 
-async function showHistory(table, id) {
-  setWhere(app.overview?.site, 'History');
-  const changes = await call('history', { table, id });
-  clear(
-    main,
-    h('button', { class: 'back', onclick: () => history.back() }, '← Back'),
-    h('h2', {}, `History of this ${table.replace('_', ' ')}`),
-    h(
-      'ol',
-      { class: 'history' },
-      changes.map((c) =>
-        h(
-          'li',
-          {},
-          h('span', { class: 'when' }, c.at.replace('T', ' ').replace('Z', ' UTC')),
-          ' ',
-          h('strong', {}, c.op === 'delete' ? 'deleted' : c.field),
-          c.op === 'delete' ? '' : ` ${c.old === null ? '(empty)' : c.old} → ${c.new === null ? '(empty)' : c.new}`,
-        ),
-      ),
-    ),
-  );
+/** The screens by view name: how each is shown and how many parts of the hash it takes. */
+const screens = new Map();
+/** The view shown when the hash names none (or lacks what the screen needs). */
+const HOME = 'route';
+
+/**
+ * A screen makes itself known: `#/<view>/<a>/<b>` calls `show(main, a, b)`
+ * when the hash has the `params` parts the screen needs.
+ */
+export function register(view, show, params = 0) {
+  if (screens.has(view)) throw new Error(`a screen is already registered as ${view}`);
+  screens.set(view, { show, params });
 }
 
-function settings() {
-  const input = h('input', {
-    id: 'observer',
-    value: app.observer,
-    autocomplete: 'name',
-    placeholder: 'Your name or initials',
-    onchange: (e) => {
-      app.observer = e.target.value.trim();
-      localStorage.setItem('fieldcage-observer', app.observer);
-    },
-  });
-  return h('label', { class: 'observer' }, 'Observer ', input);
-}
-
+/** Show the screen the hash names (the route when it names none). */
 export async function render() {
-  const [, view, a, b] = (location.hash || '#/route').split('/');
+  const main = byId('main');
+  const [, view, ...parts] = (location.hash || `#/${HOME}`).split('/');
   try {
     if (!app.overview) app.overview = await call('overview', { date: app.date || undefined });
-    if (view === 'cage' && a) await showSheet(main, a);
-    else if (view === 'history' && a && b) await showHistory(a, b);
-    else if (view === 'review') await showReview(main);
-    else if (view === 'results') await showResults(main);
-    else if (view === 'settings') await showSettings(main);
-    else if (view === 'conflicts') await showConflicts(main);
-    else await showRoute(main, settings());
+    const screen = screens.get(view);
+    const given = parts.slice(0, screen?.params ?? 0);
+    if (screen && given.length === screen.params && given.every(Boolean)) await screen.show(main, ...given);
+    else await screens.get(HOME)?.show(main);
   } catch (e) {
     clear(main, h('p', { class: 'problem', role: 'alert' }, problemText(e)));
   }
 }
 
-watchSync();
-addEventListener('hashchange', render);
-paintSaveState();
-render();
+/** Wire the shell to the page: the observer and day asked for, the hash, the save state; then show. */
+export function start() {
+  app.observer = localStorage.getItem('fieldcage-observer') ?? '';
+  app.date = new URLSearchParams(location.search).get('date') ?? '';
+  addEventListener('hashchange', render);
+  paintSaveState();
+  return render();
+}
