@@ -1328,3 +1328,241 @@ fn a_synthetic_season_raises_only_its_chance_cover_totals() {
     let report = checks::run(&mut store, &Scope::Season, today).unwrap();
     assert_eq!(report.changes.new as i64, off);
 }
+
+// ----- Issue 14: the route, the sheet, field entry and the checks agree -----
+
+/// A service on a second connection to the fixture's database.
+fn service_on(fx: &Fx) -> fieldcage_ops::Service {
+    fieldcage_ops::Service::new(Store::open(fx.store.path()).unwrap())
+}
+
+/// The census days the checks call missing in a cage, as of the end of `day`.
+fn missing_census(fx: &Fx, label: &str, day: i64) -> Vec<i64> {
+    let entries = fx.store.list::<ScheduleEntry>().unwrap();
+    let mut days: Vec<i64> = fx
+        .flags_on(&checks::visits::MISSING, day)
+        .into_iter()
+        .filter(|f| f.cage == label)
+        .filter_map(|f| {
+            let e = entries
+                .iter()
+                .find(|e| Some(e.id.0) == f.related.as_ref().map(|r| r.id))?;
+            (e.kind == VisitKind::Census).then_some(e.day)
+        })
+        .collect();
+    days.sort();
+    days
+}
+
+/// What the route says of a cage at the start of `day`: census days overdue,
+/// census days late (still in their grace days), and the cage's state.
+fn route_of(fx: &Fx, label: &str, day: i64) -> (Vec<i64>, Vec<i64>, String) {
+    let date = start() + Duration::days(day);
+    let route = service_on(fx)
+        .call("route", serde_json::json!({ "date": date }))
+        .unwrap();
+    let cage = route["blocks"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .flat_map(|b| b["cages"].as_array().unwrap().clone())
+        .find(|c| c["label"] == label)
+        .unwrap();
+    let census_days = |list: &serde_json::Value| -> Vec<i64> {
+        list.as_array()
+            .unwrap()
+            .iter()
+            .filter(|p| p["kind"] == "census")
+            .map(|p| p["day"].as_i64().unwrap())
+            .collect()
+    };
+    (
+        census_days(&cage["overdue"]),
+        census_days(&cage["late"]),
+        cage["state"].as_str().unwrap().to_owned(),
+    )
+}
+
+/// Cages of treatment S with their day-0 stocking and cover made, so that
+/// only the censuses are in question.
+fn cages_ready(fx: &mut Fx, n: usize) -> Vec<(EnclosureId, String)> {
+    (0..n)
+        .map(|i| {
+            let (id, label) = fx.cage("S", i);
+            for kind in [VisitKind::Stocking, VisitKind::Cover] {
+                let v = fx.visit(id, kind, 0);
+                fx.write(|w| record::complete_visit(w, v));
+            }
+            (id, label)
+        })
+        .collect()
+}
+
+#[test]
+fn regression_14_route_and_checks_agree_on_which_visits_are_made_and_missed() {
+    let mut fx = Fx::new(&[]);
+    let cages = cages_ready(&mut fx, 3);
+    let [(a, la), (b, lb), (_, lc)] = [cages[0].clone(), cages[1].clone(), cages[2].clone()];
+    // A: a census recorded for no planned day, made on day 4, inside census
+    // 3's window (day 3 + 1 grace day): it fulfils census 3.
+    let va = fx.visit_at(a, VisitKind::Census, None, at(4, 9, 0), Some("tester"));
+    fx.write(|w| record::complete_visit(w, va));
+    // B: a census recorded for day 3 but made on day 6: it fulfils census 3,
+    // not census 6.
+    let vb = fx.visit_at(b, VisitKind::Census, Some(3), at(6, 9, 0), Some("tester"));
+    fx.write(|w| record::complete_visit(w, vb));
+    // C: no census at all.
+
+    // The route at the start of a day and the checks at the end of the day
+    // before give one answer, every day, in every cage (a rule of our own:
+    // common practice of a schedule with grace days).
+    for day in 1..=12 {
+        for label in [&la, &lb, &lc] {
+            let (overdue, _, _) = route_of(&fx, label, day);
+            assert_eq!(
+                overdue,
+                missing_census(&fx, label, day - 1),
+                "cage {label} on day {day}: route overdue vs checks missing"
+            );
+        }
+    }
+    // A on day 5: census 3 is made (the route used to list it as overdue).
+    assert_eq!(route_of(&fx, &la, 5).0, Vec::<i64>::new());
+    // B on day 6: census 6 is still to do (the route used to say done,
+    // because a completed census was dated that day).
+    let (_, _, state) = route_of(&fx, &lb, 6);
+    assert_eq!(state, "not_started");
+    assert_eq!(route_of(&fx, &lb, 8).0, vec![6]);
+    assert_eq!(missing_census(&fx, &lb, 7), vec![6]);
+    // C on day 4: census 3 is late but not missed, and the cage has work
+    // (the route used to say nothing was due); on day 5 it is overdue.
+    let (overdue, late, state) = route_of(&fx, &lc, 4);
+    assert_eq!((overdue, late), (vec![], vec![3]));
+    assert_eq!(state, "not_started");
+    assert_eq!(missing_census(&fx, &lc, 3), Vec::<i64>::new());
+    assert_eq!(route_of(&fx, &lc, 5).0, vec![3]);
+    assert_eq!(missing_census(&fx, &lc, 4), vec![3]);
+}
+
+#[test]
+fn regression_14_a_census_after_the_planned_one_was_made_is_unplanned() {
+    let mut fx = Fx::new(&[]);
+    let (a, _) = cages_ready(&mut fx, 1)[0].clone();
+    // Census 3 made on day 3, recorded for no planned day (an import, an
+    // older device): it fulfils census 3.
+    fx.visit_at(a, VisitKind::Census, None, at(3, 9, 0), Some("tester"));
+    let slug = fx.taxon("SLUG");
+    let saved = service_on(&fx)
+        .call(
+            "save_census",
+            serde_json::json!({
+                "enclosure_id": a, "taxon_id": slug, "alive": 9, "dead": 0, "missing": 1,
+                "date": start() + Duration::days(4), "observer": "tester",
+            }),
+        )
+        .unwrap();
+    let visit_id = saved["visit_id"].as_str().unwrap().to_owned();
+    let visit = fx
+        .store
+        .list::<Visit>()
+        .unwrap()
+        .into_iter()
+        .find(|v| v.id.to_string() == visit_id)
+        .unwrap();
+    // The day-4 census fulfils no planned census that is still open, so it
+    // is recorded for none (it used to be recorded for census 3, a second
+    // census of day 3 in the results).
+    assert_eq!(visit.day, None);
+    let results = fieldcage_core::analysis::analyse(&fx.store, &Default::default()).unwrap();
+    assert!(
+        !results
+            .notes
+            .iter()
+            .any(|n| n.contains("more than one census visit on day 3")),
+        "{:?}",
+        results.notes
+    );
+}
+
+#[test]
+fn regression_14_the_sheet_and_the_checks_agree_on_a_restock() {
+    let mut fx = Fx::new(&[]);
+    let (a, la) = cages_ready(&mut fx, 1)[0].clone();
+    let slug = fx.taxon("SLUG");
+    let day3 = start() + Duration::days(3);
+    let service = service_on(&fx);
+    service
+        .call(
+            "save_census",
+            serde_json::json!({
+                "enclosure_id": a, "taxon_id": slug, "alive": 4, "dead": 1, "missing": 5,
+                "date": day3, "observer": "tester",
+            }),
+        )
+        .unwrap();
+    let suggested = |service: &fieldcage_ops::Service| -> serde_json::Value {
+        let sheet = service
+            .call(
+                "sheet",
+                serde_json::json!({ "enclosure_id": a, "date": day3 }),
+            )
+            .unwrap();
+        sheet["animals"]
+            .as_array()
+            .unwrap()
+            .iter()
+            .find(|l| l["taxon"]["code"] == "SLUG")
+            .unwrap()["restock_suggested"]
+            .clone()
+    };
+    // The demo plan: 10 slugs, restock below 5 (invented); 4 alive → 6.
+    assert_eq!(suggested(&service), serde_json::json!(6));
+    assert_eq!(
+        fx.flags_on(&checks::counts::RESTOCK_DUE, 3)
+            .iter()
+            .filter(|f| f.cage == la)
+            .count(),
+        1
+    );
+    service
+        .call(
+            "save_stocking",
+            serde_json::json!({
+                "enclosure_id": a, "taxon_id": slug, "kind": "restock", "count": 6,
+                "date": day3, "observer": "tester",
+            }),
+        )
+        .unwrap();
+    // Restocked that day: the sheet no longer offers it (it used to offer
+    // the same restock again), and the checks raise nothing.
+    assert_eq!(suggested(&service), serde_json::Value::Null);
+    assert!(
+        fx.flags_on(&checks::counts::RESTOCK_DUE, 3)
+            .iter()
+            .all(|f| f.cage != la)
+    );
+}
+
+#[test]
+fn regression_14_an_unplanned_damage_visit_in_the_window_must_score_every_leaf() {
+    let mut fx = Fx::new(&[]);
+    let (a, la) = cages_ready(&mut fx, 1)[0].clone();
+    fx.leaf(a, "T1", 0);
+    // Damage 7 made on day 8 (inside its grace day), recorded for no planned
+    // day, scoring no leaf: it fulfils damage 7 for visits.missing, so it
+    // must also score the leaf (it used to pass both rules silently).
+    fx.visit_at(a, VisitKind::Damage, None, at(8, 9, 0), Some("tester"));
+    let unscored: Vec<Flag> = fx
+        .flags_on(&checks::damage::LEAF_UNSCORED, 10)
+        .into_iter()
+        .filter(|f| f.cage == la)
+        .collect();
+    assert_eq!(unscored.len(), 1, "{unscored:?}");
+    assert_eq!(unscored[0].day, 8);
+    assert!(
+        fx.flags_on(&checks::visits::MISSING, 10)
+            .iter()
+            .filter(|f| f.cage == la)
+            .all(|f| !f.message.contains("damage planned on day 7"))
+    );
+}

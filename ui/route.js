@@ -32,14 +32,18 @@ function goToDay(date) {
 
 function cageButton(cage) {
   const due = cage.due.map((k) => fmt.kind[k]).join(' + ');
-  const late = cage.overdue.map((p) => `${fmt.kind[p.kind]} day ${p.day}`).join(', ');
+  const planned = (list) => list.map((p) => `${fmt.kind[p.kind]} day ${p.day}`).join(', ');
+  const missed = planned(cage.overdue);
+  // Planned on an earlier day, still within its grace days: to do today.
+  const late = planned(cage.late ?? []);
   return h(
     'a',
     { class: `cage state-${cage.state}`, href: `#/cage/${cage.enclosure_id}`, dataset: { label: cage.label } },
     h('span', { class: 'cage-label' }, cage.label),
     h('span', { class: 'cage-treatment' }, `${cage.treatment_code} · ${cage.treatment_name}`),
     due ? h('span', { class: 'cage-due' }, due) : null,
-    late ? h('span', { class: 'cage-late' }, `Missed: ${late}`) : null,
+    late ? h('span', { class: 'cage-due' }, `Still to do: ${late}`) : null,
+    missed ? h('span', { class: 'cage-late' }, `Missed: ${missed}`) : null,
     h('span', { class: 'cage-state' }, STATE_TEXT[cage.state]),
     cage.open_flags ? h('span', { class: 'cage-flags' }, `⚑ ${cage.open_flags} open flag${cage.open_flags === 1 ? '' : 's'}`) : null,
   );

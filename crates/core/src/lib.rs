@@ -17,6 +17,7 @@ pub mod export;
 pub mod import;
 pub mod model;
 pub mod record;
+pub mod season;
 pub mod setup;
 pub mod store;
 pub mod sync;

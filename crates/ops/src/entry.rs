@@ -3,25 +3,24 @@
 //! goes through the core's field-entry commands and the one write path.
 
 use chrono::{NaiveDate, Utc};
-use rusqlite::OptionalExtension;
 use serde::{Deserialize, Serialize};
 use uuid::Uuid;
 
 use fieldcage_core::model::*;
-use fieldcage_core::record::{self, CoverEntry, CoverTarget, DamageEntry, NewVisit};
+use fieldcage_core::record::{self, CoverEntry, CoverTarget, DamageEntry};
 use fieldcage_core::store::Writer;
 use fieldcage_core::{Error, Result};
 
-use crate::context::Context;
 use crate::*;
+use fieldcage_core::season::{self, Frame, VisitFor};
 
 impl Service {
     /// Find today's visit of a kind to a cage, or start one.
     pub fn start_visit(&self, req: VisitRequest) -> Result<Visit> {
-        self.write(|w, ctx| {
+        self.write(|w, frame| {
             self.visit_for(
                 w,
-                ctx,
+                frame,
                 req.enclosure_id,
                 req.kind,
                 req.date,
@@ -52,10 +51,10 @@ impl Service {
 
     /// Save the census of one animal taxon at a cage today.
     pub fn save_census(&self, req: SaveCensus) -> Result<Saved<Census>> {
-        self.write(|w, ctx| {
+        self.write(|w, frame| {
             let visit = self.visit_for(
                 w,
-                ctx,
+                frame,
                 req.enclosure_id,
                 VisitKind::Census,
                 req.date,
@@ -68,7 +67,7 @@ impl Service {
 
     /// Record animals put in or taken out.
     pub fn save_stocking(&self, req: SaveStocking) -> Result<Saved<StockingEvent>> {
-        self.write(|w, ctx| {
+        self.write(|w, frame| {
             let kind = if req.kind == StockingKind::Initial {
                 VisitKind::Stocking
             } else {
@@ -76,7 +75,7 @@ impl Service {
             };
             let visit = self.visit_for(
                 w,
-                ctx,
+                frame,
                 req.enclosure_id,
                 kind,
                 req.date,
@@ -115,10 +114,10 @@ impl Service {
                 ));
             }
         };
-        self.write(|w, ctx| {
+        self.write(|w, frame| {
             let visit = self.visit_for(
                 w,
-                ctx,
+                frame,
                 req.enclosure_id,
                 VisitKind::Cover,
                 req.date,
@@ -143,7 +142,7 @@ impl Service {
                 ));
             }
         };
-        self.write(|w, ctx| {
+        self.write(|w, frame| {
             let leaf: TaggedLeaf = w
                 .get(req.leaf_id.0)?
                 .ok_or_else(|| not_found("tagged_leaf", req.leaf_id.0))?;
@@ -160,7 +159,7 @@ impl Service {
             }
             let visit = self.visit_for(
                 w,
-                ctx,
+                frame,
                 leaf.enclosure_id,
                 VisitKind::Damage,
                 req.date,
@@ -173,8 +172,8 @@ impl Service {
 
     /// Tag a new leaf on a cage's plant.
     pub fn tag_leaf(&self, req: TagLeaf) -> Result<TaggedLeaf> {
-        self.write(|w, ctx| {
-            let date = self.field_date(ctx, req.date);
+        self.write(|w, frame| {
+            let date = self.field_date(&frame.calendar, req.date);
             record::tag_leaf(
                 w,
                 req.enclosure_id,
@@ -188,8 +187,8 @@ impl Service {
 
     /// Record that a leaf is lost, or lost and replaced by a newly tagged one.
     pub fn set_leaf_fate(&self, req: LeafFateRequest) -> Result<TaggedLeaf> {
-        self.write(|w, ctx| {
-            let date = self.field_date(ctx, req.date);
+        self.write(|w, frame| {
+            let date = self.field_date(&frame.calendar, req.date);
             let leaf: TaggedLeaf = w
                 .get(req.leaf_id.0)?
                 .ok_or_else(|| not_found("tagged_leaf", req.leaf_id.0))?;
@@ -218,7 +217,7 @@ impl Service {
 
     /// Delete a field record (a tombstone; the change log keeps it).
     pub fn delete_record(&self, req: RecordRef) -> Result<Deleted> {
-        let schema = editable_table(&req.table)?;
+        let schema = season::editable_table(&req.table)?;
         self.write(|w, _| w.delete(schema, &req.id.to_string()))?;
         Ok(Deleted {
             table: req.table,
@@ -226,79 +225,24 @@ impl Service {
         })
     }
 
-    /// Today's visit of `kind` to a cage, started if there is none. A new
-    /// visit fulfils the scheduled day of that kind: today's, or an earlier
-    /// one not yet visited and still within its grace days; otherwise it is
-    /// unscheduled.
+    /// Today's visit of a kind to a cage, or a new one
+    /// ([`fieldcage_core::season::visit_for`]).
     fn visit_for(
         &self,
         w: &mut Writer<'_>,
-        ctx: &Context,
+        frame: &Frame,
         enclosure: EnclosureId,
         kind: VisitKind,
         date: Option<NaiveDate>,
         observer: Option<&str>,
     ) -> Result<Visit> {
-        let date = self.field_date(ctx, date);
-        ctx.cage(enclosure)?;
-        let observer = observer.map(str::trim).filter(|o| !o.is_empty());
-        let existing: Option<VisitId> = w
-            .conn()
-            .query_row(
-                "SELECT id FROM visit WHERE enclosure_id = ?1 AND kind = ?2 AND deleted = 0 \
-                 AND substr(visited_at, 1, 10) = ?3 ORDER BY id DESC LIMIT 1",
-                rusqlite::params![enclosure, kind.as_str(), date.to_string()],
-                |r| r.get(0),
-            )
-            .optional()?;
-        if let Some(id) = existing {
-            let mut visit: Visit = w.get(id.0)?.ok_or_else(|| not_found("visit", id.0))?;
-            if visit.observer.is_none() && observer.is_some() {
-                visit.observer = observer.map(str::to_owned);
-                w.update(&visit)?;
-            }
-            return Ok(visit);
-        }
-        let day = (date - ctx.experiment.start_date).num_days();
-        let done: Vec<i64> = w
-            .conn()
-            .prepare("SELECT day FROM visit WHERE enclosure_id = ?1 AND kind = ?2 AND deleted = 0 AND day IS NOT NULL")?
-            .query_map(rusqlite::params![enclosure, kind.as_str()], |r| r.get(0))?
-            .collect::<rusqlite::Result<_>>()?;
-        // Today's planned day, or an earlier one still within its grace days.
-        let planned: Option<i64> = w
-            .conn()
-            .prepare(
-                "SELECT day FROM schedule_entry WHERE kind = ?1 AND deleted = 0 \
-                 AND day <= ?2 AND day + grace_days >= ?2 ORDER BY day DESC",
-            )?
-            .query_map(rusqlite::params![kind.as_str(), day], |r| {
-                r.get::<_, i64>(0)
-            })?
-            .filter_map(|d| d.ok())
-            .find(|d| *d == day || !done.contains(d));
-        let now = Utc::now().with_timezone(&ctx.offset);
-        let at = date
-            .and_time(now.time())
-            .and_local_timezone(ctx.offset)
-            .single()
-            .unwrap_or(now);
-        record::start_visit(
-            w,
-            NewVisit {
-                enclosure_id: enclosure,
-                kind,
-                day: planned,
-                visited_at: at,
-                observer: observer.map(str::to_owned),
-                // The device name as set now (the settings screen can change it).
-                device: Some(w.conn().query_row(
-                    "SELECT name FROM local_device WHERE singleton = 1",
-                    [],
-                    |r| r.get(0),
-                )?),
-            },
-        )
+        let want = VisitFor {
+            cage: enclosure,
+            kind,
+            date: self.field_date(&frame.calendar, date),
+            observer,
+        };
+        season::visit_for(w, frame, want, Utc::now())
     }
 }
 

@@ -2,13 +2,15 @@
 //! undo of its last change.
 
 use chrono::DateTime;
-use rusqlite::types::Value;
 use serde::{Deserialize, Serialize};
 use serde_json::Value as Json;
 use uuid::Uuid;
 
 use fieldcage_core::tables::{self};
 use fieldcage_core::{Error, Result};
+
+use fieldcage_core::season;
+pub use fieldcage_core::season::{UndoAction, Undone};
 
 use crate::*;
 
@@ -41,69 +43,11 @@ impl Service {
             .collect())
     }
 
-    /// Undo the latest change of a record made on this device: an insert is
-    /// deleted, an update has its fields set back. Refused when the record
-    /// changed since on another device.
+    /// Undo the latest change of a record made on this device
+    /// ([`fieldcage_core::season::undo`]).
     pub fn undo(&self, req: RecordRef) -> Result<Undone> {
-        let schema = editable_table(&req.table)?;
-        self.write(|w, _| {
-            let id = req.id.to_string();
-            let mut log = fieldcage_core::store::log::row_entries(w.conn(), &req.table, &id)?;
-            log.sort_by_key(|e| std::cmp::Reverse((e.hlc, e.seq)));
-            let entries: Vec<(String, i64, String, Option<String>, Value)> = log
-                .into_iter()
-                .map(|e| {
-                    (
-                        e.device_id,
-                        e.hlc,
-                        e.op.as_str().to_owned(),
-                        e.field,
-                        e.old_value,
-                    )
-                })
-                .collect();
-            let Some((device, hlc, op, _, _)) = entries.first().cloned() else {
-                return Err(not_found(&req.table, req.id));
-            };
-            if device != w.device_id() {
-                return Err(Error::State(format!(
-                    "the latest change of this {} was made on another device; edit it instead",
-                    req.table
-                )));
-            }
-            let group: Vec<&(String, i64, String, Option<String>, Value)> = entries
-                .iter()
-                .filter(|e| e.1 == hlc && e.0 == device)
-                .collect();
-            match op.as_str() {
-                "insert" => {
-                    w.delete(schema, &id)?;
-                    Ok(Undone {
-                        table: req.table.clone(),
-                        id: req.id,
-                        action: "deleted".into(),
-                        fields: vec![],
-                    })
-                }
-                "update" => {
-                    let changes: Vec<(&str, Value)> = group
-                        .iter()
-                        .filter_map(|e| e.3.as_deref().map(|f| (f, e.4.clone())))
-                        .collect();
-                    w.update_fields(schema, &id, &changes)?;
-                    Ok(Undone {
-                        table: req.table.clone(),
-                        id: req.id,
-                        action: "restored".into(),
-                        fields: changes.iter().map(|(f, _)| (*f).to_owned()).collect(),
-                    })
-                }
-                _ => Err(Error::State(format!(
-                    "this {} was deleted; enter it again instead",
-                    req.table
-                ))),
-            }
-        })
+        let schema = season::editable_table(&req.table)?;
+        self.write(|w, _| season::undo(w, schema, req.id))
     }
 }
 
@@ -115,19 +59,6 @@ pub struct RecordRef {
     pub table: String,
     /// Row id.
     pub id: Uuid,
-}
-
-/// What an undo did.
-#[derive(Debug, Clone, Serialize)]
-pub struct Undone {
-    /// Table.
-    pub table: String,
-    /// Id.
-    pub id: Uuid,
-    /// deleted (an insert undone) or restored (an update undone).
-    pub action: String,
-    /// Fields set back.
-    pub fields: Vec<String>,
 }
 
 /// One change-log entry of a record.

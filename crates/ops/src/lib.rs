@@ -17,7 +17,6 @@
 //! - [`auto_sync`]: sync on its own whenever the target is back.
 
 pub mod auto_sync;
-mod context;
 pub mod entry;
 pub mod history;
 mod problem;
@@ -44,17 +43,16 @@ pub use fieldcage_core as core;
 
 use std::sync::{Mutex, MutexGuard};
 
-use chrono::{NaiveDate, Utc};
+use chrono::NaiveDate;
 use rusqlite::types::Value;
 use serde::Serialize;
 use serde::de::DeserializeOwned;
 use serde_json::Value as Json;
 
+use fieldcage_core::season::{Calendar, Frame};
 use fieldcage_core::store::{Store, Writer};
-use fieldcage_core::tables::{self, display_value};
+use fieldcage_core::tables::display_value;
 use fieldcage_core::{Error, Result};
-
-use context::Context;
 
 /// The operation set over one database.
 pub struct Service {
@@ -172,19 +170,22 @@ impl Service {
         self.store.lock().unwrap_or_else(|p| p.into_inner())
     }
 
-    /// Run a write; the result is returned only after the commit.
+    /// Run a write with the season's frame as the transaction sees it; the
+    /// result is returned only after the commit.
     pub(crate) fn write<T>(
         &self,
-        f: impl FnOnce(&mut Writer<'_>, &Context) -> Result<T>,
+        f: impl FnOnce(&mut Writer<'_>, &Frame) -> Result<T>,
     ) -> Result<T> {
-        let mut store = self.store();
-        let ctx = Context::load(&store)?;
-        store.write(|w| f(w, &ctx))
+        self.store().write(|w| {
+            let frame = Frame::load(w.conn())?;
+            f(w, &frame)
+        })
     }
 
-    pub(crate) fn field_date(&self, ctx: &Context, date: Option<NaiveDate>) -> NaiveDate {
-        date.or(self.today)
-            .unwrap_or_else(|| Utc::now().with_timezone(&ctx.offset).date_naive())
+    /// The field day: the one asked for, else the server's fixed day, else
+    /// today in the experiment's local time.
+    pub(crate) fn field_date(&self, calendar: &Calendar, date: Option<NaiveDate>) -> NaiveDate {
+        date.or(self.today).unwrap_or_else(|| calendar.today())
     }
 }
 
@@ -193,27 +194,6 @@ pub(crate) fn not_found(table: &str, id: impl std::fmt::Display) -> Error {
         table: table.to_owned(),
         id: id.to_string(),
     }
-}
-
-/// Tables whose rows the crew may delete or undo from the UI.
-pub(crate) fn editable_table(name: &str) -> Result<&'static tables::TableSchema> {
-    const EDITABLE: &[&str] = &[
-        "visit",
-        "stocking_event",
-        "census",
-        "cover_record",
-        "damage_record",
-        "tagged_leaf",
-    ];
-    if !EDITABLE.contains(&name) {
-        return Err(Error::invalid(
-            "request",
-            "table",
-            name,
-            format!("field records only: {}", EDITABLE.join(", ")),
-        ));
-    }
-    tables::get(name).ok_or_else(|| Error::invalid("request", "table", name, "is not a table"))
 }
 
 /// A stored value as JSON (numbers stay numbers).

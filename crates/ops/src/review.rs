@@ -6,16 +6,16 @@ use serde::Deserialize;
 
 use fieldcage_core::Result;
 
-use crate::context::Context;
 use crate::*;
+use fieldcage_core::season::Frame;
 
 impl Service {
     /// Run the day's-end checks (the field day, or the whole season), store
     /// the flags and return them with their status.
     pub fn review(&self, req: ReviewRequest) -> Result<fieldcage_core::checks::Report> {
         let mut store = self.store();
-        let ctx = Context::load(&store)?;
-        let date = self.field_date(&ctx, req.date);
+        let frame = Frame::load(store.conn())?;
+        let date = self.field_date(&frame.calendar, req.date);
         let scope = if req.season {
             fieldcage_core::checks::Scope::Season
         } else {

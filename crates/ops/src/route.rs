@@ -9,23 +9,24 @@ use serde::{Deserialize, Serialize};
 use fieldcage_core::Result;
 use fieldcage_core::model::*;
 
-use crate::context::Context;
 use crate::*;
+use fieldcage_core::season::Frame;
+use fieldcage_core::season::schedule::{self, AsOf, PlanState};
 
 impl Service {
     /// The experiment, the field day and what the device knows.
     pub fn overview(&self, req: DayRequest) -> Result<Overview> {
         let store = self.store();
-        let ctx = Context::load(&store)?;
-        let date = self.field_date(&ctx, req.date);
+        let frame = Frame::load(store.conn())?;
+        let date = self.field_date(&frame.calendar, req.date);
         let pending: i64 = store.change_count()?;
         Ok(Overview {
-            experiment_code: ctx.experiment.code.clone(),
-            experiment_title: ctx.experiment.title.clone(),
-            site: ctx.site_name.clone(),
-            start_date: ctx.experiment.start_date,
+            experiment_code: frame.experiment.code.clone(),
+            experiment_title: frame.experiment.title.clone(),
+            site: frame.site_name.clone(),
+            start_date: frame.experiment.start_date,
             date,
-            day: (date - ctx.experiment.start_date).num_days(),
+            day: frame.calendar.day_of(date),
             device_id: store.device_id().to_owned(),
             device_name: store.device_name()?,
             logged_changes: pending,
@@ -33,17 +34,23 @@ impl Service {
         })
     }
 
-    /// Today's route: every cage with what is due today and overdue, by block.
+    /// Today's route: every cage with what is due today, late (still within
+    /// its grace days) and overdue, by block. A planned visit counts as made
+    /// by the one rule of [`fieldcage_core::season::schedule::fulfils`], the
+    /// same the day's-end checks use; the route judges the schedule at the
+    /// start of the field day, the checks at the end of theirs.
     pub fn route(&self, req: DayRequest) -> Result<Route> {
         let store = self.store();
-        let ctx = Context::load(&store)?;
-        let date = self.field_date(&ctx, req.date);
-        let day = (date - ctx.experiment.start_date).num_days();
-        let schedule = store.list::<ScheduleEntry>()?;
-        let visits = store.list::<Visit>()?;
-        let mut by_cage: HashMap<EnclosureId, Vec<&Visit>> = HashMap::new();
-        for v in &visits {
+        let frame = Frame::load(store.conn())?;
+        let calendar = &frame.calendar;
+        let date = self.field_date(calendar, req.date);
+        let day = calendar.day_of(date);
+        let mut by_cage: HashMap<EnclosureId, Vec<Visit>> = HashMap::new();
+        for v in store.list::<Visit>()? {
             by_cage.entry(v.enclosure_id).or_default().push(v);
+        }
+        for visits in by_cage.values_mut() {
+            visits.sort_by_key(|v| (v.visited_at, v.id));
         }
         let open_flags: HashMap<EnclosureId, i64> = store
             .conn()
@@ -53,44 +60,42 @@ impl Service {
             )?
             .query_map([], |r| Ok((r.get(0)?, r.get(1)?)))?
             .collect::<rusqlite::Result<_>>()?;
+        let due = schedule::planned_on(&frame.schedule, day);
         let mut blocks: BTreeMap<String, Vec<RouteCage>> = BTreeMap::new();
-        for cage in &ctx.cages {
+        for (cage, treatment) in frame.assigned_cages() {
             let visits = by_cage.get(&cage.id).map(Vec::as_slice).unwrap_or_default();
-            let due: Vec<VisitKind> = schedule
+            let plan = schedule::status(calendar, &frame.schedule, visits, day, AsOf::StartOf);
+            let planned = |wanted: fn(&PlanState) -> bool| -> Vec<Planned> {
+                plan.iter()
+                    .filter(|p| wanted(&p.state))
+                    .map(|p| Planned {
+                        kind: p.entry.kind,
+                        day: p.entry.day,
+                    })
+                    .collect()
+            };
+            let overdue = planned(|s| *s == PlanState::Missed);
+            let late = planned(|s| *s == PlanState::Late);
+            let today: Vec<&PlanState> = plan
                 .iter()
-                .filter(|s| s.day == day)
-                .map(|s| s.kind)
+                .filter(|p| p.entry.day == day)
+                .map(|p| &p.state)
                 .collect();
-            let overdue: Vec<Planned> = schedule
-                .iter()
-                .filter(|s| s.day + s.grace_days < day)
-                .filter(|s| {
-                    !visits
-                        .iter()
-                        .any(|v| v.kind == s.kind && v.day == Some(s.day))
-                })
-                .map(|s| Planned {
-                    kind: s.kind,
-                    day: s.day,
-                })
-                .collect();
-            let today: Vec<&&Visit> = visits
-                .iter()
-                .filter(|v| v.visited_at.date_naive() == date)
-                .collect();
-            let done = due
-                .iter()
-                .filter(|k| today.iter().any(|v| v.kind == **k && v.completed))
-                .count();
-            let started = due
-                .iter()
-                .filter(|k| today.iter().any(|v| v.kind == **k))
-                .count();
-            let state = if !due.is_empty() && done == due.len() {
+            let made = |s: &&PlanState| matches!(s, PlanState::Made { .. });
+            let complete = |s: &&PlanState| {
+                matches!(
+                    s,
+                    PlanState::Made {
+                        completed: true,
+                        ..
+                    }
+                )
+            };
+            let state = if !today.is_empty() && today.iter().all(complete) && late.is_empty() {
                 CageState::Done
-            } else if started > 0 {
+            } else if today.iter().any(made) {
                 CageState::Partial
-            } else if !due.is_empty() {
+            } else if !today.is_empty() || !late.is_empty() {
                 CageState::NotStarted
             } else if !overdue.is_empty() {
                 CageState::Overdue
@@ -103,9 +108,10 @@ impl Service {
                 .push(RouteCage {
                     enclosure_id: cage.id,
                     label: cage.label.clone(),
-                    treatment_code: cage.treatment.code.clone(),
-                    treatment_name: cage.treatment.name.clone(),
-                    due,
+                    treatment_code: treatment.code.clone(),
+                    treatment_name: treatment.name.clone(),
+                    due: due.clone(),
+                    late,
                     overdue,
                     state,
                     open_flags: open_flags.get(&cage.id).copied().unwrap_or(0),
@@ -172,11 +178,11 @@ pub struct Planned {
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize)]
 #[serde(rename_all = "snake_case")]
 pub enum CageState {
-    /// Visits due today, none started.
+    /// Visits to make today (planned today, or late), none started.
     NotStarted,
-    /// Some of today's visits started.
+    /// Some of today's planned visits started.
     Partial,
-    /// Every visit due today is complete.
+    /// Every visit planned today is complete and none is late.
     Done,
     /// Nothing due today but an earlier visit was missed.
     Overdue,
@@ -195,9 +201,12 @@ pub struct RouteCage {
     pub treatment_code: String,
     /// Treatment name.
     pub treatment_name: String,
-    /// Kinds due today.
+    /// Kinds planned for today.
     pub due: Vec<VisitKind>,
-    /// Scheduled visits past their grace days without a visit.
+    /// Planned visits of earlier days not made yet but still within their
+    /// grace days: to do today.
+    pub late: Vec<Planned>,
+    /// Planned visits past their grace days without a visit.
     pub overdue: Vec<Planned>,
     /// Where the cage stands today.
     pub state: CageState,

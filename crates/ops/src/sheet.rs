@@ -8,16 +8,19 @@ use serde::{Deserialize, Serialize};
 use fieldcage_core::Result;
 use fieldcage_core::model::*;
 
-use crate::context::Context;
+use fieldcage_core::season::{Frame, schedule, stocking};
+use fieldcage_core::store::Store;
+
 use crate::*;
 
 impl Service {
     /// Everything the cage sheet shows for one cage on one day.
     pub fn sheet(&self, req: CageRequest) -> Result<Sheet> {
         let store = self.store();
-        let ctx = Context::load(&store)?;
-        let date = self.field_date(&ctx, req.date);
-        let cage = ctx.cage(req.enclosure_id)?;
+        let frame = Frame::load(store.conn())?;
+        let calendar = &frame.calendar;
+        let date = self.field_date(calendar, req.date);
+        let (cage, treatment) = frame.assigned_cage(req.enclosure_id)?;
         let visits: Vec<Visit> = store
             .list::<Visit>()?
             .into_iter()
@@ -39,11 +42,6 @@ impl Service {
             .map(|v| (v.id, v.visited_at.date_naive()))
             .collect();
         let taxa = store.list::<Taxon>()?;
-        let plans: Vec<StockingPlan> = store
-            .list::<StockingPlan>()?
-            .into_iter()
-            .filter(|p| p.treatment_id == cage.treatment.id)
-            .collect();
         let events: Vec<StockingEvent> = store
             .list::<StockingEvent>()?
             .into_iter()
@@ -67,7 +65,7 @@ impl Service {
             .iter()
             .filter(|t| t.role != Role::Plant)
             .map(|t| {
-                let plan = plans.iter().find(|p| p.taxon_id == t.id);
+                let plan = frame.plan(treatment.id, t.id);
                 let sum = |kind: StockingKind| -> i64 {
                     events
                         .iter()
@@ -86,14 +84,16 @@ impl Service {
                     .find(|c| c.taxon_id == t.id && today_ids.contains(&c.visit_id))
                     .cloned();
                 let restock_below = plan.and_then(|p| p.restock_below);
-                let restock = match (
-                    today_census.as_ref().and_then(|c| c.alive),
-                    restock_below,
-                    plan,
-                ) {
-                    (Some(alive), Some(below), Some(p)) if alive < below => {
-                        Some(p.initial_count - alive)
-                    }
+                // The rule of counts.restock_due: none once a restock of
+                // the taxon is recorded in the cage that day.
+                let restocked_today = events.iter().any(|e| {
+                    e.taxon_id == t.id
+                        && e.kind == StockingKind::Restock
+                        && e.count > 0
+                        && today_ids.contains(&e.visit_id)
+                });
+                let restock = match (today_census.as_ref().and_then(|c| c.alive), plan) {
+                    (Some(alive), Some(p)) => stocking::restock_due(p, alive, restocked_today),
                     _ => None,
                 };
                 AnimalLine {
@@ -155,26 +155,22 @@ impl Service {
             .into_iter()
             .filter(|e| today_ids.contains(&e.visit_id))
             .collect();
-        let schedule = store.list::<ScheduleEntry>()?;
-        let day = (date - ctx.experiment.start_date).num_days();
+        let day = calendar.day_of(date);
+        let (cover, damage) = protocols(&store)?;
         Ok(Sheet {
             enclosure_id: cage.id,
             label: cage.label.clone(),
             block: cage.block.clone(),
-            treatment: cage.treatment.clone(),
+            treatment: treatment.clone(),
             date,
             day,
             days_since_stocking: first_stocking.map(|d| (date - d).num_days()),
-            due: schedule
-                .iter()
-                .filter(|s| s.day == day)
-                .map(|s| s.kind)
-                .collect(),
+            due: schedule::planned_on(&frame.schedule, day),
             visits: today,
             animals,
             plants,
-            cover: ctx.cover.clone(),
-            damage: ctx.damage.clone(),
+            cover,
+            damage,
             cover_records,
             leaves,
             stocking_today,
@@ -352,4 +348,59 @@ pub struct Sheet {
     pub leaves: Vec<LeafLine>,
     /// Today's stocking events.
     pub stocking_today: Vec<StockingEvent>,
+}
+
+/// The cover and damage protocols as the sheet shows them.
+fn protocols(store: &Store) -> Result<(CoverInfo, DamageInfo)> {
+    let scales = store.list::<ScaleClass>()?;
+    let classes_of = |scale: Option<ScaleId>| -> Vec<ClassLine> {
+        let mut v: Vec<ClassLine> = scales
+            .iter()
+            .filter(|c| Some(c.scale_id) == scale)
+            .map(|c| ClassLine {
+                code: c.code.clone(),
+                lower_pct: c.lower_pct,
+                upper_pct: c.upper_pct,
+                midpoint_pct: c.midpoint_pct,
+                description: c.description.clone(),
+                sort_order: c.sort_order,
+            })
+            .collect();
+        v.sort_by_key(|c| c.sort_order);
+        v
+    };
+    let protocol = store
+        .list::<CoverProtocol>()?
+        .into_iter()
+        .next()
+        .ok_or_else(|| Error::State("the experiment has no cover protocol".into()))?;
+    let ground = store
+        .list::<GroundCategory>()?
+        .into_iter()
+        .filter(|g| g.protocol_id == protocol.id)
+        .map(|g| CategoryLine {
+            code: g.code,
+            name: g.name,
+        })
+        .collect();
+    let cover = CoverInfo {
+        method: protocol.method,
+        layered: protocol.layered,
+        pins_per_frame: protocol.pins_per_frame,
+        hit_rule: protocol.hit_rule,
+        tolerance_pct: protocol.tolerance_pct,
+        classes: classes_of(protocol.scale_id),
+        ground,
+    };
+    let dp = store
+        .list::<DamageProtocol>()?
+        .into_iter()
+        .next()
+        .ok_or_else(|| Error::State("the experiment has no damage protocol".into()))?;
+    let damage = DamageInfo {
+        method: dp.method,
+        leaves_per_enclosure: dp.leaves_per_enclosure,
+        classes: classes_of(dp.scale_id),
+    };
+    Ok((cover, damage))
 }

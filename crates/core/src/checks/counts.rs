@@ -13,6 +13,7 @@ use chrono::NaiveDate;
 
 use super::{Flag, Rule, Season};
 use crate::model::*;
+use crate::season::stocking;
 
 /// More animals than can be in the cage.
 pub const TOO_MANY: Rule = Rule {
@@ -215,10 +216,9 @@ fn check_row(
         }
     }
     if let (Some(alive), Some(threshold)) = (row.alive, plan.restock_below)
-        && alive < threshold
-        && !restocked_on.contains(&(date, row.taxon_id))
+        && let Some(target) =
+            stocking::restock_due(plan, alive, restocked_on.contains(&(date, row.taxon_id)))
     {
-        let target = plan.initial_count - alive;
         out.push(RESTOCK_DUE.flag(
             cage,
             day,

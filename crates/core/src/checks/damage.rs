@@ -10,6 +10,7 @@ use std::collections::HashMap;
 
 use super::{EPSILON, Flag, Rule, Season, num};
 use crate::model::*;
+use crate::season::schedule;
 
 /// A damage row whose entry does not fit the protocol.
 pub const METHOD: Rule = Rule {
@@ -106,8 +107,11 @@ pub fn check(season: &Season, out: &mut Vec<Flag>) {
                     ));
                 }
             }
-            if visit.day.is_none() {
-                continue; // only scheduled damage visits must score every leaf
+            // Only a damage visit that fulfils a planned one must score
+            // every leaf (the schedule's one rule: recorded for that day, or
+            // for none and made within its grace days).
+            if !schedule::fulfils_any(&season.calendar, &season.schedule, visit) {
+                continue;
             }
             for leaf in leaves {
                 let in_place = leaf.tagged_on <= date

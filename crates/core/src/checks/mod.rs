@@ -254,17 +254,8 @@ pub fn check(conn: &rusqlite::Connection, scope: &Scope, today: NaiveDate) -> Re
 
 /// Today's local date in the experiment's UTC offset.
 pub fn today(conn: &rusqlite::Connection) -> Result<NaiveDate> {
-    let offset: String = conn
-        .query_row(
-            "SELECT utc_offset FROM experiment WHERE deleted = 0 ORDER BY id LIMIT 1",
-            [],
-            |r| r.get(0),
-        )
-        .map_err(|_| crate::Error::State("the database holds no experiment".into()))?;
-    let offset: chrono::FixedOffset = offset.parse().map_err(|_| {
-        crate::Error::invalid("experiment", "utc_offset", &offset, "is not an offset")
-    })?;
-    Ok(chrono::Utc::now().with_timezone(&offset).date_naive())
+    let experiment = crate::season::experiment(conn)?;
+    Ok(crate::season::Calendar::of(&experiment)?.today())
 }
 
 /// Shortest text of a number of percent or points (`4.5`, `45`).

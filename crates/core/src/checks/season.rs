@@ -11,6 +11,7 @@ use rusqlite::{Connection, Row};
 
 use super::Limits;
 use crate::model::*;
+use crate::season::Calendar;
 use crate::store;
 use crate::{Error, Result};
 
@@ -52,6 +53,8 @@ pub struct CoverRow {
 pub struct Season {
     /// Start date of the experiment (day 0).
     pub start: NaiveDate,
+    /// The experiment's calendar (start and offset).
+    pub calendar: Calendar,
     /// The checks run as of the end of this day.
     pub today: NaiveDate,
     /// Thresholds the protocol rows do not hold.
@@ -164,6 +167,7 @@ impl Season {
 
         Ok(Season {
             start: experiment.start_date,
+            calendar: Calendar::of(&experiment)?,
             today,
             limits,
             cages,
@@ -185,17 +189,17 @@ impl Season {
 
     /// Day of the experiment of a local date.
     pub fn day_of(&self, date: NaiveDate) -> i64 {
-        (date - self.start).num_days()
+        self.calendar.day_of(date)
     }
 
     /// Date of a day of the experiment.
     pub fn date_of(&self, day: i64) -> NaiveDate {
-        self.start + chrono::Duration::days(day)
+        self.calendar.date_of(day)
     }
 
     /// Day of the experiment on which a visit was made (its local date).
     pub fn visit_day(&self, visit: &Visit) -> i64 {
-        self.day_of(visit.visited_at.date_naive())
+        self.calendar.made_on(visit)
     }
 
     /// The code of a taxon, or its id when it is unknown.

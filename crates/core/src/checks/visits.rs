@@ -13,6 +13,7 @@ use chrono::NaiveDate;
 
 use super::{Flag, Rule, Season};
 use crate::model::*;
+use crate::season::schedule::{self, AsOf, PlanState};
 
 /// A planned visit not made.
 pub const MISSING: Rule = Rule {
@@ -83,19 +84,17 @@ pub fn check(season: &Season, out: &mut Vec<Flag>) {
     animals.sort_by(|a, b| a.code.cmp(&b.code));
     plants.sort_by(|a, b| a.code.cmp(&b.code));
     for (cage, visits, _) in season.each_cage() {
-        for entry in &season.schedule {
-            let last_day = entry.day + entry.grace_days;
-            if last_day > today {
-                continue;
-            }
-            let fulfilled = visits.iter().any(|v| {
-                v.kind == entry.kind
-                    && match v.day {
-                        Some(d) => d == entry.day,
-                        None => (entry.day..=last_day).contains(&season.visit_day(v)),
-                    }
-            });
-            if !fulfilled {
+        let plan = schedule::status(
+            &season.calendar,
+            &season.schedule,
+            visits,
+            today,
+            AsOf::EndOf,
+        );
+        for status in plan {
+            let entry = status.entry;
+            let last_day = schedule::last_day(entry);
+            if status.state == PlanState::Missed {
                 out.push(
                     MISSING
                         .flag(

@@ -194,11 +194,7 @@ impl Store {
 
     /// This device's human name (shown to other devices in sync).
     pub fn device_name(&self) -> Result<String> {
-        Ok(self.conn.query_row(
-            "SELECT name FROM local_device WHERE singleton = 1",
-            [],
-            |r| r.get(0),
-        )?)
+        device_name(&self.conn)
     }
 
     /// Check a device name as typed: 1 to 60 characters without line breaks
@@ -344,6 +340,34 @@ pub fn list<R: Record>(conn: &Connection) -> Result<Vec<R>> {
         .into_iter()
         .map(|v| from_values(schema, v))
         .collect()
+}
+
+/// The live rows of `R` that match a condition on its columns (`filter`, a
+/// parameterised SQL expression such as `enclosure_id = ?1`), ordered by id.
+pub fn live_where<R: Record>(
+    conn: &Connection,
+    filter: &str,
+    params: impl rusqlite::Params,
+) -> Result<Vec<R>> {
+    let schema = table_of::<R>();
+    let sql = format!(
+        "SELECT {} FROM {} WHERE deleted = 0 AND ({filter}) ORDER BY id",
+        schema.column_list(),
+        schema.name
+    );
+    let mut stmt = conn.prepare_cached(&sql)?;
+    let rows = stmt.query_map(params, |r| read_values(r, schema.fields.len()))?;
+    rows.map(|v| from_values(schema, v?))
+        .collect::<Result<Vec<R>>>()
+}
+
+/// This device's human name, on a connection.
+pub(crate) fn device_name(conn: &Connection) -> Result<String> {
+    Ok(conn.query_row(
+        "SELECT name FROM local_device WHERE singleton = 1",
+        [],
+        |r| r.get(0),
+    )?)
 }
 
 /// Every live row of a table on a connection as stored values, ordered by id.

@@ -61,6 +61,11 @@ impl<'a> Writer<'a> {
         self.device_id
     }
 
+    /// This device's human name, as this transaction sees it.
+    pub fn device_name(&self) -> Result<String> {
+        super::device_name(&self.tx)
+    }
+
     /// A fresh row id (UUIDv7).
     pub fn new_id(&mut self) -> Uuid {
         self.ids.next()
