@@ -185,3 +185,221 @@ fn the_map_in_developers_md_names_every_crate() {
         "DEVELOPERS.md's map has no src-tauri row"
     );
 }
+
+/// The string literals of a Rust source, each with the 1-based line of every
+/// character: `"…"` (with escapes), raw `r"…"` / `r#"…"#`, byte and C
+/// strings. Comments (`//` to the end of the line, `/* … */` nested) are
+/// skipped, and so are char literals (`'"'`) and lifetimes, so that none of
+/// them starts a string. A small lexer of its own: the test needs only the
+/// literals.
+fn string_literals(source: &str) -> Vec<Vec<(usize, char)>> {
+    let s: Vec<char> = source.chars().collect();
+    let word = |c: char| c.is_alphanumeric() || c == '_';
+    let mut out = Vec::new();
+    let mut line = 1;
+    let mut i = 0;
+    // Take the literal whose text starts at `i` and ends at a `"` followed
+    // by `hashes` `#` (escapes only when `escapes`); returns the index after it.
+    let mut take = |mut i: usize, hashes: usize, escapes: bool, line: &mut usize| {
+        let mut text = Vec::new();
+        while i < s.len() {
+            let c = s[i];
+            if c == '"' && (1..=hashes).all(|k| s.get(i + k) == Some(&'#')) {
+                i += 1 + hashes;
+                break;
+            }
+            if escapes && c == '\\' && i + 1 < s.len() {
+                // The escaped character stays in the text (so `\"` does not
+                // end the literal); a `\` before a line break continues it.
+                text.push((*line, c));
+                i += 1;
+            }
+            *line += usize::from(s[i] == '\n');
+            text.push((*line, s[i]));
+            i += 1;
+        }
+        out.push(text);
+        i
+    };
+    while i < s.len() {
+        let c = s[i];
+        let next = s.get(i + 1).copied();
+        if c == '\n' {
+            line += 1;
+            i += 1;
+        } else if c == '/' && next == Some('/') {
+            while i < s.len() && s[i] != '\n' {
+                i += 1;
+            }
+        } else if c == '/' && next == Some('*') {
+            let mut depth = 0;
+            while i < s.len() {
+                if s[i] == '/' && s.get(i + 1) == Some(&'*') {
+                    depth += 1;
+                    i += 2;
+                } else if s[i] == '*' && s.get(i + 1) == Some(&'/') {
+                    depth -= 1;
+                    i += 2;
+                    if depth == 0 {
+                        break;
+                    }
+                } else {
+                    line += usize::from(s[i] == '\n');
+                    i += 1;
+                }
+            }
+        } else if c == '\'' {
+            // A char literal ('x', '\n', '\'', '"'), or a lifetime ('a).
+            if next == Some('\\') {
+                i += 3;
+                while i < s.len() && s[i] != '\'' {
+                    i += 1;
+                }
+                i += 1;
+            } else if s.get(i + 2) == Some(&'\'') {
+                i += 3;
+            } else {
+                i += 1;
+            }
+        } else if c == '"' {
+            i = take(i + 1, 0, true, &mut line);
+        } else if word(c) {
+            // A whole word at once (identifier, keyword, number), so that
+            // only a word `r`, `br` or `cr` can open a raw string and `r#type`
+            // does not.
+            let start = i;
+            while i < s.len() && word(s[i]) {
+                i += 1;
+            }
+            let w: String = s[start..i].iter().collect();
+            if matches!(w.as_str(), "r" | "br" | "cr") {
+                let mut j = i;
+                while s.get(j) == Some(&'#') {
+                    j += 1;
+                }
+                if s.get(j) == Some(&'"') {
+                    i = take(j + 1, j - i, false, &mut line);
+                }
+            }
+        } else {
+            i += 1;
+        }
+    }
+    out
+}
+
+/// Where `text` holds one of the words of SQL that write (`INSERT`,
+/// `UPDATE`, `DELETE`, `REPLACE`: upper case, as the project writes its SQL,
+/// and as whole words): the line of each.
+fn sql_writes(text: &[(usize, char)]) -> Vec<(usize, &'static str)> {
+    let mut found = Vec::new();
+    let word = |c: char| c.is_alphanumeric() || c == '_';
+    for keyword in ["INSERT", "UPDATE", "DELETE", "REPLACE"] {
+        let k: Vec<char> = keyword.chars().collect();
+        for at in 0..text.len() {
+            let here = text[at..].iter().map(|(_, c)| *c).take(k.len());
+            let bounded_before = at == 0 || !word(text[at - 1].1);
+            let bounded_after = text.get(at + k.len()).is_none_or(|(_, c)| !word(*c));
+            if bounded_before && bounded_after && here.eq(k.iter().copied()) {
+                found.push((text[at].0, keyword));
+            }
+        }
+    }
+    found.sort();
+    found
+}
+
+/// The product's Rust sources outside the store: every crate that ships in
+/// the user's binary or the tablet app, with their `#[cfg(test)]` modules
+/// (which set up their cases through the store as well). Not the tests, the
+/// test kit, the benchmark or the power-cut VFS, which never ship.
+fn product_sources_outside_the_store() -> Vec<PathBuf> {
+    let roots = [
+        "crates/core/src/",
+        "crates/ops/src/",
+        "crates/server/src/",
+        "crates/cli/src/",
+        "src-tauri/src/",
+    ];
+    repository_texts()
+        .into_iter()
+        .filter(|p| p.extension().is_some_and(|e| e == "rs"))
+        .filter(|p| {
+            let rel = p.strip_prefix(repo_root()).unwrap().to_string_lossy();
+            let rel = rel.replace('\\', "/");
+            roots.iter().any(|r| rel.starts_with(r)) && !rel.starts_with("crates/core/src/store/")
+        })
+        .collect()
+}
+
+#[test]
+fn the_sql_lexer_finds_writes_in_literals_and_nothing_in_comments() {
+    let source = r###"
+// INSERT INTO a comment is not SQL
+/* nor is UPDATE in a /* nested */ DELETE block comment */
+let quote = '"'; let other = '\''; fn f<'a>(x: &'a str) {}
+let read = "SELECT * FROM t WHERE op = 'update' AND UPDATED = 1";
+let write = "SELECT 1; \
+             DELETE FROM t";
+let raw = r#"INSERT OR "REPLACE" INTO t"#;
+let bytes = b"UPDATE t SET a = 1";
+let escaped = "say \"hi\" // not a comment: REPLACE";
+let r#type = 1; let bar = "INSERTS and _DELETE are other words";
+"###;
+    let literals = string_literals(source);
+    let found: Vec<(usize, &str)> = literals.iter().flat_map(|l| sql_writes(l)).collect();
+    assert_eq!(
+        found,
+        [
+            (7, "DELETE"),
+            (8, "INSERT"),
+            (8, "REPLACE"),
+            (9, "UPDATE"),
+            (10, "REPLACE")
+        ]
+    );
+    assert_eq!(literals.len(), 6, "{literals:?}");
+}
+
+#[test]
+fn no_sql_writes_outside_the_store() {
+    let sources = product_sources_outside_the_store();
+    let shown = |p: &Path| p.strip_prefix(repo_root()).unwrap().display().to_string();
+    let names: Vec<String> = sources.iter().map(|p| shown(p)).collect();
+    for expected in [
+        "crates/core/src/sync/apply.rs",
+        "crates/ops/src/lib.rs",
+        "crates/server/src/lib.rs",
+        "crates/cli/src/main.rs",
+        "src-tauri/src/lib.rs",
+    ] {
+        assert!(
+            names.iter().any(|n| n == expected),
+            "{expected} not scanned: {names:?}"
+        );
+    }
+    assert!(
+        !names
+            .iter()
+            .any(|n| n.starts_with("crates/core/src/store/")),
+        "{names:?}"
+    );
+    let mut literals = 0;
+    let mut writes = Vec::new();
+    for path in &sources {
+        let text = std::fs::read_to_string(path).unwrap();
+        for literal in string_literals(&text) {
+            literals += 1;
+            for (line, keyword) in sql_writes(&literal) {
+                writes.push(format!("{}:{line}: {keyword}", shown(path)));
+            }
+        }
+    }
+    assert!(literals > 1000, "only {literals} string literals found");
+    assert!(
+        writes.is_empty(),
+        "SQL that writes outside crates/core/src/store/ (write through the store: \
+         Store::write, or a function of store::sync_state for sync bookkeeping):\n{}",
+        writes.join("\n")
+    );
+}

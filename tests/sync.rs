@@ -433,6 +433,106 @@ fn an_unreachable_target_is_an_error_to_retry_and_nothing_changes() {
     assert_eq!(sync::target_is_reachable(&t), sync::TargetStatus::Ready);
 }
 
+/// Make the database refuse new rows of `table` (as a full disk would),
+/// through a TEMP trigger: it lives in this test's connection only.
+fn refuse_inserts(d: &Device, table: &str, reason: &str) {
+    d.store
+        .conn()
+        .execute_batch(&format!(
+            "CREATE TEMP TRIGGER refuse_{table} BEFORE INSERT ON main.{table} \
+             BEGIN SELECT RAISE(ABORT, '{reason}'); END"
+        ))
+        .unwrap();
+}
+
+fn allow_inserts(d: &Device, table: &str) {
+    d.store
+        .conn()
+        .execute_batch(&format!("DROP TRIGGER temp.refuse_{table}"))
+        .unwrap();
+}
+
+/// A sync that did its work but whose run cannot be recorded is reported
+/// (the last sync shown would be the one before); a run that failed keeps
+/// its own error even when its record fails too.
+#[test]
+fn a_sync_run_that_cannot_be_recorded_is_reported_and_a_failed_run_keeps_its_error() {
+    let tmp = fast_temp();
+    let target = target(&tmp);
+    let mut a = Device::tiny(&tmp, "a", SEASON_MILLIS);
+    let mut b = Device::tiny(&tmp, "b", SEASON_MILLIS + 5);
+    b.sync(&target);
+    let rows = |d: &Device, table: &str| -> i64 {
+        d.store
+            .conn()
+            .query_row(&format!("SELECT count(*) FROM {table}"), [], |r| r.get(0))
+            .unwrap()
+    };
+    let runs = |d: &Device| rows(d, "sync_run");
+    let applied = |d: &Device| rows(d, "sync_applied");
+    assert!(sync::pending_changes(&a.store).unwrap() > 0);
+
+    // The run fails (its written change-set cannot be recorded), and so
+    // does its record: the crew sees why the run failed.
+    refuse_inserts(&a, "sync_run", "no room for the run");
+    refuse_inserts(&a, "sync_written", "no room for the change-set");
+    let err = sync::sync_once(&mut a.store, &target).unwrap_err();
+    assert!(matches!(err, Error::Sqlite(_)), "{err:?}");
+    assert!(
+        err.to_string().contains("no room for the change-set"),
+        "{err}"
+    );
+    assert_eq!(runs(&a), 0);
+
+    // The run does its work, only its record is refused: an error that
+    // says so, with everything it did kept.
+    allow_inserts(&a, "sync_written");
+    let err = sync::sync_once(&mut a.store, &target).unwrap_err();
+    assert!(matches!(err, Error::RunNotRecorded(_)), "{err:?}");
+    let text = err.to_string();
+    assert!(
+        text.contains("written and applied") && text.contains("no room for the run"),
+        "{text}"
+    );
+    assert_eq!(runs(&a), 0);
+    assert_eq!(
+        sync::pending_changes(&a.store).unwrap(),
+        0,
+        "a's changes are recorded as sent"
+    );
+    assert_eq!(own_files(&target, &a).len(), 1);
+    assert_eq!(applied(&a), 1, "b's change-set is applied");
+    assert_eq!(sync::last_success(&a.store).unwrap(), None);
+
+    // Once the database takes it again, the next run is recorded.
+    allow_inserts(&a, "sync_run");
+    let r = a.sync(&target);
+    assert!(r.written.is_empty() && r.applied.is_empty(), "{r}");
+    assert_eq!(runs(&a), 1);
+    assert!(sync::last_success(&a.store).unwrap().is_some());
+
+    // A failed run whose record is taken is recorded as unfinished.
+    refuse_inserts(&a, "sync_written", "no room for the change-set");
+    a.store
+        .write(|w| {
+            let [v0, _] = Tiny::visits();
+            let [herb, _] = Tiny::taxa();
+            w.insert(&census(100, v0, herb, 7))
+        })
+        .unwrap();
+    sync::sync_once(&mut a.store, &target).unwrap_err();
+    let unfinished: i64 = a
+        .store
+        .conn()
+        .query_row(
+            "SELECT count(*) FROM sync_run WHERE finished = 0",
+            [],
+            |r| r.get(0),
+        )
+        .unwrap();
+    assert_eq!((runs(&a), unfinished), (2, 1));
+}
+
 #[test]
 fn device_names_are_checked_and_travel_with_the_changes() {
     let tmp = fast_temp();

@@ -95,6 +95,15 @@ pub enum Error {
     /// identity (a copy or a restored backup); retrying will not help.
     #[error("{0}")]
     DeviceClash(String),
+    /// A sync run wrote and applied its change-sets, but the record of the
+    /// run could not be stored: what it did is saved, the last sync shown is
+    /// still the one before. The cause is the database's (a full disk, a
+    /// read-only file); the next run records itself when it is gone.
+    #[error(
+        "the sync run finished (its changes are written and applied), but it could not be \
+         recorded, so the last sync shown is still the one before: {0}"
+    )]
+    RunNotRecorded(#[source] Box<Error>),
     /// SQLite reported an error.
     #[error("database: {0}")]
     Sqlite(#[from] rusqlite::Error),

@@ -13,6 +13,7 @@ pub mod log;
 pub(crate) mod merge;
 pub mod migrations;
 mod rows;
+pub(crate) mod sync_state;
 pub mod typed_text;
 mod writer;
 

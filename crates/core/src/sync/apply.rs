@@ -22,7 +22,7 @@ use rusqlite::{OptionalExtension, TransactionBehavior, params};
 use super::SyncOptions;
 use super::changeset::ChangeSet;
 use crate::store::merge::{self, Entry, Knowledge, Settler};
-use crate::store::{Hlc, Op, Store, log};
+use crate::store::{Hlc, Op, Store, log, sync_state};
 use crate::tables;
 use crate::{Error, Result};
 
@@ -242,11 +242,7 @@ fn apply_within(
         }
     }
     for (device, seq) in &cs.seen {
-        tx.prepare_cached(
-            "INSERT OR REPLACE INTO sync_knowledge (device_id, from_seq, other_device, upto_seq) \
-             VALUES (?1, ?2, ?3, ?4)",
-        )?
-        .execute(params![cs.device_id, cs.first_seq, device, seq])?;
+        sync_state::record_knowledge(tx, &cs.device_id, cs.first_seq, device, *seq)?;
     }
     let knowledge = Knowledge::load(tx)?;
     // Each row once, in the order its first entry arrived: the author's
@@ -300,10 +296,7 @@ fn apply_within(
     // always wins over what its author had seen.
     let max_remote = cs.changes.iter().map(|c| c.hlc).max().unwrap_or(0);
     let hlc = Hlc(local_hlc).receive(Hlc(max_remote), now);
-    tx.execute(
-        "UPDATE local_device SET hlc = ?1 WHERE singleton = 1",
-        [hlc.0],
-    )?;
+    sync_state::set_hlc(tx, hlc.0)?;
     let ahead =
         (Hlc(max_remote).millis() - now > options.clock_ahead_limit_millis).then_some(ClockAhead {
             hlc: max_remote,
@@ -311,39 +304,32 @@ fn apply_within(
         });
     let noticed = super::timestamp(now);
     if let Some(a) = &ahead {
-        tx.execute(
-            "INSERT INTO sync_clock_anomaly (noticed_at, device_id, kind, hlc, local_millis, file_name) \
-             VALUES (?1, ?2, 'ahead', ?3, ?4, ?5)",
-            params![noticed, cs.device_id, a.hlc, a.local_millis, file],
+        sync_state::record_clock_anomaly(
+            tx,
+            &sync_state::Anomaly {
+                noticed_at: &noticed,
+                device_id: &cs.device_id,
+                kind: sync_state::ClockSide::Ahead,
+                hlc: a.hlc,
+                local_millis: a.local_millis,
+                file_name: Some(file),
+            },
         )?;
     }
-    tx.execute(
-        "INSERT INTO sync_applied (device_id, first_seq, last_seq, sha256, file_name, size_bytes, applied_at) \
-         VALUES (?1, ?2, ?3, ?4, ?5, ?6, ?7)",
-        params![
-            cs.device_id,
-            cs.first_seq,
-            cs.last_seq,
-            cs.sha256,
-            file,
-            size as i64,
-            noticed
-        ],
+    sync_state::record_applied(
+        tx,
+        &sync_state::Applied {
+            device_id: &cs.device_id,
+            first_seq: cs.first_seq,
+            last_seq: cs.last_seq,
+            sha256: &cs.sha256,
+            file_name: file,
+            size_bytes: size,
+            applied_at: &noticed,
+        },
     )?;
-    tx.execute(
-        "INSERT INTO sync_device (device_id, name) VALUES (?1, ?2) \
-         ON CONFLICT (device_id) DO UPDATE SET name = ?2",
-        params![cs.device_id, cs.device_name],
-    )?;
+    sync_state::record_device_name(tx, &cs.device_id, &cs.device_name)?;
     // What this device knows from now on: its next entries saw all of it.
-    tx.execute(
-        "DELETE FROM sync_knowledge WHERE device_id = ?1 AND from_seq = ?2",
-        params![me, next_seq],
-    )?;
-    tx.execute(
-        "INSERT INTO sync_knowledge (device_id, from_seq, other_device, upto_seq) \
-         SELECT ?1, ?2, device_id, max(last_seq) FROM sync_applied GROUP BY device_id",
-        params![me, next_seq],
-    )?;
+    sync_state::record_own_knowledge(tx, me, next_seq)?;
     Ok(Outcome::Applied { ahead })
 }

@@ -47,7 +47,7 @@ pub use conflicts::{Conflict, ConflictChoice, ConflictKind, Version, conflicts, 
 pub use target::{check_target, save_target, saved_target};
 
 use crate::disk::{Disk, OsDisk};
-use crate::store::{Store, log};
+use crate::store::{Store, log, sync_state};
 use crate::tables;
 use crate::{Error, Result};
 use changeset::{Change, ChangeSet};
@@ -450,20 +450,26 @@ pub fn sync_with_disk(
     };
     let result = run(store, target, options, disk, &mut report);
     let finished = timestamp(store.now_millis());
-    let _ = store.conn().execute(
-        "INSERT INTO sync_run (started_at, finished_at, target, written, applied, skipped, finished) \
-         VALUES (?1, ?2, ?3, ?4, ?5, ?6, ?7)",
-        params![
-            started,
-            finished,
-            target.display().to_string(),
-            report.written.len() as i64,
-            report.applied.len() as i64,
-            report.skipped.len() as i64,
-            i64::from(result.is_ok())
-        ],
+    let recorded = sync_state::record_run(
+        store.conn(),
+        &sync_state::Run {
+            started_at: &started,
+            finished_at: &finished,
+            target: &target.display().to_string(),
+            written: report.written.len() as i64,
+            applied: report.applied.len() as i64,
+            skipped: report.skipped.len() as i64,
+            finished: result.is_ok(),
+        },
     );
+    // A failed run: its own error is what the crew must see and act on, so
+    // it is returned even when the run could not be recorded either (only
+    // finished runs are ever shown, so that record is the lesser loss).
     result?;
+    // A run that did its work but is not recorded is reported: the last
+    // sync shown would otherwise stay the one before, as if this one had not
+    // happened.
+    recorded.map_err(|e| Error::RunNotRecorded(Box::new(e)))?;
     report.open_conflicts = open_conflict_count(store)?;
     report.pending_changes = pending_changes(store)?;
     report.finished_at = finished;
@@ -730,14 +736,16 @@ fn write_own(
             ));
         }
         let size = fs::metadata(&path).map_err(|e| Error::io(&path, e))?.len();
-        record_written(
+        sync_state::record_written(
             store.conn(),
-            first,
-            cs.last_seq,
-            &cs.device_name,
-            &cs.sha256,
-            size,
-            store.now_millis(),
+            &sync_state::Written {
+                first_seq: first,
+                last_seq: cs.last_seq,
+                device_name: &cs.device_name,
+                sha256: &cs.sha256,
+                size_bytes: size,
+                written_at: &timestamp(store.now_millis()),
+            },
         )?;
         recorded.push(Written {
             first,
@@ -780,14 +788,16 @@ fn write_own(
             {
                 report.warnings.push(warning);
             }
-            record_written(
+            sync_state::record_written(
                 store.conn(),
-                first.seq,
-                last.seq,
-                &name,
-                &sha,
-                bytes.len() as u64,
-                store.now_millis(),
+                &sync_state::Written {
+                    first_seq: first.seq,
+                    last_seq: last.seq,
+                    device_name: &name,
+                    sha256: &sha,
+                    size_bytes: bytes.len() as u64,
+                    written_at: &timestamp(store.now_millis()),
+                },
             )?;
             report.written.push(WrittenFile {
                 file: dir.join(file),
@@ -818,23 +828,6 @@ fn split_between_transactions(changes: &[Change], max: usize) -> Vec<&[Change]> 
         pieces.push(&changes[start..]);
     }
     pieces
-}
-
-fn record_written(
-    conn: &Connection,
-    first: i64,
-    last: i64,
-    name: &str,
-    sha: &str,
-    size: u64,
-    now: i64,
-) -> Result<()> {
-    conn.execute(
-        "INSERT INTO sync_written (first_seq, last_seq, device_name, sha256, size_bytes, written_at) \
-         VALUES (?1, ?2, ?3, ?4, ?5, ?6)",
-        params![first, last, name, sha, size as i64, timestamp(now)],
-    )?;
-    Ok(())
 }
 
 /// A change-set found in another device's folder.
@@ -1209,10 +1202,16 @@ fn notice_local_clock(
         file: None,
         noticed_at: timestamp(now),
     };
-    store.conn().execute(
-        "INSERT INTO sync_clock_anomaly (noticed_at, device_id, kind, hlc, local_millis, file_name) \
-         VALUES (?1, ?2, 'behind', ?3, ?4, NULL)",
-        params![anomaly.noticed_at, me, hlc, now],
+    sync_state::record_clock_anomaly(
+        store.conn(),
+        &sync_state::Anomaly {
+            noticed_at: &anomaly.noticed_at,
+            device_id: &me,
+            kind: sync_state::ClockSide::Behind,
+            hlc,
+            local_millis: now,
+            file_name: None,
+        },
     )?;
     report.anomalies.push(anomaly);
     Ok(())

@@ -11,6 +11,7 @@
 use std::fs;
 use std::path::{Path, PathBuf};
 
+use crate::store::sync_state;
 use crate::{Error, Result, Store};
 
 fn invalid(value: &str, reason: impl Into<String>) -> Error {
@@ -117,9 +118,6 @@ pub fn save_target(store: &mut Store, text: &str) -> Result<Option<PathBuf>> {
         ),
         None => None,
     };
-    store.conn().execute(
-        "UPDATE local_device SET sync_target = ?1 WHERE singleton = 1",
-        [stored],
-    )?;
+    sync_state::set_sync_target(store.conn(), stored.as_deref())?;
     Ok(target)
 }
