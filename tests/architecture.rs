@@ -4,7 +4,7 @@
 //! what the compiler cannot see (a dependency that is allowed but must not be
 //! there, a hidden command, a comment pointing out of the repository).
 
-use std::collections::BTreeSet;
+use std::collections::{BTreeMap, BTreeSet};
 use std::path::{Path, PathBuf};
 use std::process::Command;
 
@@ -288,6 +288,14 @@ fn string_literals(source: &str) -> Vec<Vec<(usize, char)>> {
     out
 }
 
+/// The text of each string literal of a Rust source.
+fn literal_texts(source: &str) -> Vec<String> {
+    string_literals(source)
+        .into_iter()
+        .map(|l| l.into_iter().map(|(_, c)| c).collect())
+        .collect()
+}
+
 /// Where `text` holds one of the words of SQL that write (`INSERT`,
 /// `UPDATE`, `DELETE`, `REPLACE`: upper case, as the project writes its SQL,
 /// and as whole words): the line of each.
@@ -401,5 +409,269 @@ fn no_sql_writes_outside_the_store() {
         "SQL that writes outside crates/core/src/store/ (write through the store: \
          Store::write, or a function of store::sync_state for sync bookkeeping):\n{}",
         writes.join("\n")
+    );
+}
+
+/// The stored tables and their columns, as `schemas/tables/*.json` define them.
+fn stored_tables() -> BTreeMap<String, Vec<String>> {
+    let dir = repo_root().join("schemas/tables");
+    let mut tables = BTreeMap::new();
+    for entry in std::fs::read_dir(&dir).unwrap() {
+        let path = entry.unwrap().path();
+        if !path.is_file() {
+            continue;
+        }
+        let schema: serde_json::Value =
+            serde_json::from_str(&std::fs::read_to_string(&path).unwrap()).unwrap();
+        let name = path.file_stem().unwrap().to_string_lossy().into_owned();
+        let columns = schema["fields"]
+            .as_array()
+            .unwrap()
+            .iter()
+            .map(|f| f["name"].as_str().unwrap().to_owned())
+            .collect();
+        tables.insert(name, columns);
+    }
+    tables
+}
+
+/// SQL words, split off: names (with an optional `alias.` part), `(`, `)`,
+/// `,` and `{…}` placeholders of a format string; everything else dropped.
+fn sql_tokens(sql: &str) -> Vec<String> {
+    let s: Vec<char> = sql.chars().collect();
+    let mut out = Vec::new();
+    let mut i = 0;
+    while i < s.len() {
+        let c = s[i];
+        if c.is_alphabetic() || c == '_' {
+            let start = i;
+            while i < s.len() && (s[i].is_alphanumeric() || s[i] == '_' || s[i] == '.') {
+                i += 1;
+            }
+            out.push(s[start..i].iter().collect());
+        } else if c == '{' {
+            let start = i;
+            while i < s.len() && s[i] != '}' {
+                i += 1;
+            }
+            i += 1;
+            out.push(s[start..i.min(s.len())].iter().collect());
+        } else if c == '\'' {
+            // An SQL string: skip it.
+            i += 1;
+            while i < s.len() && s[i] != '\'' {
+                i += 1;
+            }
+            i += 1;
+        } else {
+            if matches!(c, '(' | ')' | ',') {
+                out.push(c.to_string());
+            }
+            i += 1;
+        }
+    }
+    out
+}
+
+/// For every `SELECT … FROM …` in an SQL text (subqueries included), each
+/// stored table it reads with the columns of that table its select list names.
+fn selected_columns(
+    sql: &str,
+    tables: &BTreeMap<String, Vec<String>>,
+) -> Vec<(String, BTreeSet<String>)> {
+    let tokens = sql_tokens(sql);
+    let is = |t: &str, word: &str| t.eq_ignore_ascii_case(word);
+    let mut found = Vec::new();
+    for start in (0..tokens.len()).filter(|&k| is(&tokens[k], "SELECT")) {
+        // The select list runs to the FROM at the same depth.
+        let mut depth = 0i32;
+        let mut k = start + 1;
+        let mut items: Vec<&str> = Vec::new();
+        let mut from = None;
+        while k < tokens.len() {
+            let t = tokens[k].as_str();
+            match t {
+                "(" => depth += 1,
+                ")" if depth == 0 => break,
+                ")" => depth -= 1,
+                _ if depth == 0 && is(t, "FROM") => {
+                    from = Some(k);
+                    break;
+                }
+                // Names inside a subquery belong to it; a name before `(`
+                // is a function.
+                _ if depth == 0 && tokens.get(k + 1).map(String::as_str) != Some("(") => {
+                    let after_as = k > 0 && is(&tokens[k - 1], "AS");
+                    if !after_as && t != "," {
+                        items.push(t);
+                    }
+                }
+                _ => {}
+            }
+            k += 1;
+        }
+        let Some(from) = from else { continue };
+        // The FROM clause: `table [AS] [alias]`, joined by `,` or JOIN.
+        let mut aliases: BTreeMap<String, String> = BTreeMap::new();
+        let mut read: Vec<String> = Vec::new();
+        let mut k = from + 1;
+        let stop = [
+            "WHERE", "GROUP", "ORDER", "LIMIT", "ON", "UNION", "HAVING", "USING",
+        ];
+        while k < tokens.len() {
+            let t = tokens[k].as_str();
+            if t == ")" || stop.iter().any(|w| is(t, w)) {
+                break;
+            }
+            let joiner = ["JOIN", "CROSS", "INNER", "LEFT", "OUTER", "NATURAL", ","];
+            if joiner.iter().any(|w| is(t, w)) || t == "(" {
+                k += 1;
+                continue;
+            }
+            let table = t.to_owned();
+            let mut alias = table.clone();
+            let mut next = k + 1;
+            if tokens.get(next).is_some_and(|a| is(a, "AS")) {
+                next += 1;
+            }
+            if let Some(a) = tokens.get(next)
+                && a != ","
+                && a != ")"
+                && !stop.iter().chain(&joiner).any(|w| is(a, w))
+            {
+                alias = a.clone();
+                next += 1;
+            }
+            aliases.insert(alias, table.clone());
+            aliases.insert(table.clone(), table.clone());
+            read.push(table);
+            k = next;
+        }
+        let mut named: BTreeMap<String, BTreeSet<String>> = BTreeMap::new();
+        for item in items {
+            let (table, column) = match item.split_once('.') {
+                Some((alias, column)) => (aliases.get(alias).cloned(), column),
+                None if read.len() == 1 => (Some(read[0].clone()), item),
+                None => (None, item),
+            };
+            let candidates: Vec<&String> = match &table {
+                Some(t) => vec![t],
+                None => read.iter().collect(),
+            };
+            for t in candidates {
+                if tables
+                    .get(t)
+                    .is_some_and(|cols| cols.iter().any(|c| c == column))
+                {
+                    named
+                        .entry(t.clone())
+                        .or_default()
+                        .insert(column.to_owned());
+                }
+            }
+        }
+        found.extend(named);
+    }
+    found
+}
+
+/// A text that is nothing but a list of three or more columns of one stored
+/// table (`"id, visit_id, taxon_id"`, to be pasted into a query): the table.
+fn column_list_of(text: &str, tables: &BTreeMap<String, Vec<String>>) -> Option<String> {
+    let names: Vec<&str> = text.split(',').map(str::trim).collect();
+    if names.len() < 3
+        || names
+            .iter()
+            .any(|n| n.is_empty() || !n.chars().all(|c| c.is_ascii_alphanumeric() || c == '_'))
+    {
+        return None;
+    }
+    tables
+        .iter()
+        .find(|(_, cols)| names.iter().all(|n| cols.iter().any(|c| c == n)))
+        .map(|(t, _)| t.clone())
+}
+
+/// What in one string literal lists three or more columns of a stored table.
+fn column_lists_in(literal: &str, tables: &BTreeMap<String, Vec<String>>) -> Vec<String> {
+    let mut out: Vec<String> = selected_columns(literal, tables)
+        .into_iter()
+        .filter(|(_, columns)| columns.len() >= 3)
+        .map(|(table, columns)| {
+            let columns: Vec<String> = columns.into_iter().collect();
+            format!("{table}: {}", columns.join(", "))
+        })
+        .collect();
+    if let Some(table) = column_list_of(literal, tables) {
+        out.push(format!("{table}: {}", literal.trim()));
+    }
+    out
+}
+
+#[test]
+fn the_column_list_scanner_finds_what_it_is_meant_to() {
+    let tables = stored_tables();
+    assert!(tables.len() >= 20, "{:?}", tables.keys());
+    let literals = literal_texts(
+        r####"
+        // "SELECT id, kind, day FROM visit" in a comment is not a literal
+        let a = "SELECT id, enclosure_id, kind, day \
+                 FROM visit WHERE deleted = 0";
+        let b = '"'; let c: &'static str = "SELECT id FROM visit";
+        let d = r#"SELECT e.label, e.block_id, t.code, e.area_m2 FROM enclosure e JOIN treatment t ON t.id = e.id"#;
+        let e = "id, visit_id, alive";
+        let f = "SELECT visit_id, count(*) FROM census GROUP BY visit_id";
+        let g = format!("SELECT {} FROM visit", x);
+        let h = "SELECT label, (SELECT start_date, code, title FROM experiment) FROM enclosure";
+        "####,
+    );
+    let found: Vec<Vec<String>> = literals
+        .iter()
+        .map(|l| column_lists_in(l, &tables))
+        .collect();
+    // The comment and the char literal '"' are not literals; seven are.
+    assert_eq!(literals.len(), 7, "{literals:?}");
+    assert_eq!(
+        found[0],
+        ["visit: day, enclosure_id, id, kind"],
+        "{literals:?}"
+    );
+    assert!(found[1].is_empty(), "{found:?}");
+    assert_eq!(found[2], ["enclosure: area_m2, block_id, label"]);
+    assert_eq!(found[3], ["census: id, visit_id, alive"]);
+    assert!(found[4].is_empty() && found[5].is_empty(), "{found:?}");
+    assert_eq!(found[6], ["experiment: code, start_date, title"]);
+}
+
+#[test]
+fn only_the_schema_lists_a_records_columns() {
+    let tables = stored_tables();
+    let mut queries = 0;
+    let mut lists = Vec::new();
+    for path in product_sources_outside_the_store() {
+        if path.starts_with(repo_root().join("crates/core/src/model")) {
+            continue;
+        }
+        let shown = path.strip_prefix(repo_root()).unwrap_or(&path).display();
+        let source = std::fs::read_to_string(&path).unwrap();
+        for literal in literal_texts(&source) {
+            if !selected_columns(&literal, &tables).is_empty() {
+                queries += 1;
+            }
+            for list in column_lists_in(&literal, &tables) {
+                lists.push(format!("{shown}: {list}"));
+            }
+        }
+    }
+    // The scan sees the product's queries (a parser that sees none passes anything).
+    assert!(
+        queries > 10,
+        "only {queries} queries of stored tables found"
+    );
+    assert!(
+        lists.is_empty(),
+        "columns of stored tables listed outside their schema (read records through \
+         the generated readers of crates/core/src/model):\n{}",
+        lists.join("\n")
     );
 }

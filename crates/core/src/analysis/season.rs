@@ -206,7 +206,7 @@ impl Season {
             .collect();
         let counted: std::collections::HashSet<VisitId> = s.visits.iter().map(|v| v.id).collect();
 
-        for r in cover_records(store)? {
+        for r in store.list::<CoverRecord>()? {
             if counted.contains(&r.visit_id) {
                 s.cover.entry(r.visit_id).or_default().push(r);
             }
@@ -254,41 +254,24 @@ impl Season {
     }
 }
 
-/// Every live cover row, ordered by id. Read column by column rather than
-/// through [`Store::list`]: a season holds far more cover rows than anything
-/// else, and this keeps the analysis of a large season fast.
-fn cover_records(store: &Store) -> Result<Vec<CoverRecord>> {
-    let mut stmt = store.conn().prepare(
-        "SELECT id, visit_id, taxon_id, category, value_pct, class_code, pin_hits, cover_pct, notes \
-         FROM cover_record WHERE deleted = 0 ORDER BY id",
-    )?;
-    let rows = stmt.query_map([], |r| {
-        Ok(CoverRecord {
-            id: r.get(0)?,
-            visit_id: r.get(1)?,
-            taxon_id: r.get(2)?,
-            category: r.get(3)?,
-            value_pct: r.get(4)?,
-            class_code: r.get(5)?,
-            pin_hits: r.get(6)?,
-            cover_pct: r.get(7)?,
-            notes: r.get(8)?,
-        })
-    })?;
-    Ok(rows.collect::<rusqlite::Result<_>>()?)
-}
-
 #[cfg(test)]
 mod tests {
     use super::*;
 
     #[test]
-    fn the_fast_cover_reader_reads_what_the_store_lists() {
+    fn the_cover_rows_read_are_what_the_schema_driven_path_reads() {
         let dir = tempfile::tempdir().unwrap();
         let mut store = Store::open(dir.path().join("demo.db")).unwrap();
         crate::demo::build(&mut store).unwrap();
         let listed = store.list::<CoverRecord>().unwrap();
         assert!(listed.len() > 500);
-        assert_eq!(cover_records(&store).unwrap(), listed);
+        let schema = crate::tables::get("cover_record").unwrap();
+        let by_schema: Vec<CoverRecord> = store
+            .rows(schema)
+            .unwrap()
+            .into_iter()
+            .map(|v| crate::store::from_values(schema, v).unwrap())
+            .collect();
+        assert_eq!(listed, by_schema);
     }
 }

@@ -35,7 +35,8 @@ use chrono::NaiveDate;
 use serde::Serialize;
 use uuid::Uuid;
 
-pub use season::{Cage, CoverRow, Season};
+pub use crate::model::CoverRow;
+pub use season::{Cage, Season};
 pub use stored::{Changes, MIN_ID_SUFFIX, Report, ReportedFlag, confirm, format_report, run};
 
 use crate::Result;

@@ -1,18 +1,18 @@
 //! What the rules read: one snapshot of the season, loaded with one query per
 //! table and indexed the way the rules walk it (cage by cage, visit by visit
-//! in time order). The large record tables are read with typed queries rather
-//! than through the schema-driven record conversion, which costs more than the
-//! rules themselves on a season of 160 000 cover rows.
+//! in time order). Every table is read through its generated reader
+//! ([`crate::store::Record`]); cover rows through the [`CoverRow`] projection,
+//! which leaves out what no rule reads (a season holds 160 000 of them).
 
 use std::collections::HashMap;
 
-use chrono::{DateTime, FixedOffset, NaiveDate};
-use rusqlite::{Connection, Row};
+use chrono::NaiveDate;
+use rusqlite::Connection;
 
 use super::Limits;
 use crate::model::*;
 use crate::season::Calendar;
-use crate::store;
+use crate::store::{self, Projection, Record};
 use crate::{Error, Result};
 
 /// A cage with its treatment.
@@ -24,28 +24,6 @@ pub struct Cage {
     pub label: String,
     /// Its treatment (`None` when it has no assignment).
     pub treatment: Option<Treatment>,
-}
-
-/// A cover record as the rules read it: the stored row without its visit
-/// (the key it is filed under) and its notes, which no rule reads, and with
-/// its codes in boxed strings. On 10 seasons (1.6 M rows) this takes about
-/// 120 bytes a row where the full record takes 176.
-#[derive(Debug, Clone, PartialEq)]
-pub struct CoverRow {
-    /// The record's id.
-    pub id: CoverRecordId,
-    /// A plant taxon…
-    pub taxon_id: Option<TaxonId>,
-    /// …or a ground category code (or overall vegetation).
-    pub category: Option<Box<str>>,
-    /// Visual percent as entered.
-    pub value_pct: Option<f64>,
-    /// Class code as entered.
-    pub class_code: Option<Box<str>>,
-    /// Pin hits as entered.
-    pub pin_hits: Option<i64>,
-    /// Percent cover derived from the entry.
-    pub cover_pct: Option<f64>,
 }
 
 /// The season as the rules see it.
@@ -179,10 +157,10 @@ impl Season {
             damage_classes,
             schedule,
             visits,
-            stocking: read_stocking(conn)?,
-            census: read_census(conn)?,
-            cover: read_cover(conn)?,
-            damage: read_damage(conn)?,
+            stocking: by_visit(conn, |e: &StockingEvent| e.visit_id)?,
+            census: by_visit(conn, |c: &Census| c.visit_id)?,
+            cover: by_visit_projected::<CoverRow>(conn)?,
+            damage: by_visit(conn, |d: &DamageRecord| d.visit_id)?,
             leaves,
         })
     }
@@ -227,28 +205,28 @@ impl Season {
 /// The live rows of a record table grouped by visit. The rows of each visit
 /// are counted first so that each visit's vector is allocated once at its
 /// exact length, and the rows go straight into it (no list of every row beside
-/// the map): on 10 seasons this is most of the checks' memory.
-fn by_visit<T>(
+/// the map): on 10 seasons this is most of the checks' memory. Rows are read
+/// by the table's generated reader, in the order the table stores them.
+fn by_visit<R: Record>(
     conn: &Connection,
-    table: &str,
-    columns: &str,
-    mut f: impl FnMut(&Row<'_>) -> rusqlite::Result<T>,
-    visit: impl Fn(&T) -> VisitId,
-) -> Result<HashMap<VisitId, Vec<T>>> {
-    by_visit_keyed(conn, table, columns, |r| {
-        let row = f(r)?;
-        Ok((visit(&row), row))
-    })
+    visit: impl Fn(&R) -> VisitId,
+) -> Result<HashMap<VisitId, Vec<R>>> {
+    let mut map = counted(conn, R::TABLE)?;
+    store::each::<R>(conn, |row| map.entry(visit(&row)).or_default().push(row))?;
+    Ok(map)
 }
 
-/// [`by_visit`] for rows that do not hold their visit: `f` gives the visit
-/// and the row.
-fn by_visit_keyed<T>(
+/// [`by_visit`] for a projection keyed by its visit.
+fn by_visit_projected<P: Projection<Key = VisitId>>(
     conn: &Connection,
-    table: &str,
-    columns: &str,
-    mut f: impl FnMut(&Row<'_>) -> rusqlite::Result<(VisitId, T)>,
-) -> Result<HashMap<VisitId, Vec<T>>> {
+) -> Result<HashMap<VisitId, Vec<P>>> {
+    let mut map = counted(conn, <P::Of as Record>::TABLE)?;
+    store::each_projected::<P>(conn, |visit, row| map.entry(visit).or_default().push(row))?;
+    Ok(map)
+}
+
+/// An empty vector for every visit with live rows in `table`, sized to hold them.
+fn counted<T>(conn: &Connection, table: &str) -> Result<HashMap<VisitId, Vec<T>>> {
     let mut map: HashMap<VisitId, Vec<T>> = HashMap::new();
     let mut counts = conn.prepare_cached(&format!(
         "SELECT visit_id, count(*) FROM {table} WHERE deleted = 0 GROUP BY visit_id"
@@ -261,133 +239,11 @@ fn by_visit_keyed<T>(
             Vec::with_capacity(usize::try_from(n).unwrap_or(0)),
         );
     }
-    let mut stmt =
-        conn.prepare_cached(&format!("SELECT {columns} FROM {table} WHERE deleted = 0"))?;
-    let mut rows = stmt.query([])?;
-    while let Some(r) = rows.next()? {
-        let (visit, row) = f(r)?;
-        map.entry(visit).or_default().push(row);
-    }
     Ok(map)
 }
 
-fn query<T>(
-    conn: &Connection,
-    sql: &str,
-    f: impl FnMut(&Row<'_>) -> rusqlite::Result<T>,
-) -> Result<Vec<T>> {
-    let mut stmt = conn.prepare_cached(sql)?;
-    let rows = stmt.query_map([], f)?;
-    Ok(rows.collect::<rusqlite::Result<_>>()?)
-}
-
-fn timestamp(row: &Row<'_>, i: usize) -> rusqlite::Result<DateTime<FixedOffset>> {
-    let text: String = row.get(i)?;
-    DateTime::parse_from_rfc3339(&text).map_err(|e| {
-        rusqlite::Error::FromSqlConversionFailure(i, rusqlite::types::Type::Text, Box::new(e))
-    })
-}
-
 fn read_visits(conn: &Connection) -> Result<Vec<Visit>> {
-    query(
-        conn,
-        "SELECT id, enclosure_id, kind, day, visited_at, observer, device, completed, notes \
-         FROM visit WHERE deleted = 0",
-        |r| {
-            Ok(Visit {
-                id: r.get(0)?,
-                enclosure_id: r.get(1)?,
-                kind: r.get(2)?,
-                day: r.get(3)?,
-                visited_at: timestamp(r, 4)?,
-                observer: r.get(5)?,
-                device: r.get(6)?,
-                completed: r.get(7)?,
-                notes: r.get(8)?,
-            })
-        },
-    )
-}
-
-fn read_stocking(conn: &Connection) -> Result<HashMap<VisitId, Vec<StockingEvent>>> {
-    by_visit(
-        conn,
-        "stocking_event",
-        "id, visit_id, taxon_id, kind, count, stage, sex, notes",
-        |r| {
-            Ok(StockingEvent {
-                id: r.get(0)?,
-                visit_id: r.get(1)?,
-                taxon_id: r.get(2)?,
-                kind: r.get(3)?,
-                count: r.get(4)?,
-                stage: r.get(5)?,
-                sex: r.get(6)?,
-                notes: r.get(7)?,
-            })
-        },
-        |e| e.visit_id,
-    )
-}
-
-fn read_census(conn: &Connection) -> Result<HashMap<VisitId, Vec<Census>>> {
-    by_visit(
-        conn,
-        "census",
-        "id, visit_id, taxon_id, alive, dead, missing, notes",
-        |r| {
-            Ok(Census {
-                id: r.get(0)?,
-                visit_id: r.get(1)?,
-                taxon_id: r.get(2)?,
-                alive: r.get(3)?,
-                dead: r.get(4)?,
-                missing: r.get(5)?,
-                notes: r.get(6)?,
-            })
-        },
-        |c| c.visit_id,
-    )
-}
-
-fn read_cover(conn: &Connection) -> Result<HashMap<VisitId, Vec<CoverRow>>> {
-    by_visit_keyed(
-        conn,
-        "cover_record",
-        "id, visit_id, taxon_id, category, value_pct, class_code, pin_hits, cover_pct",
-        |r| {
-            Ok((
-                r.get(1)?,
-                CoverRow {
-                    id: r.get(0)?,
-                    taxon_id: r.get(2)?,
-                    category: r.get::<_, Option<String>>(3)?.map(String::into_boxed_str),
-                    value_pct: r.get(4)?,
-                    class_code: r.get::<_, Option<String>>(5)?.map(String::into_boxed_str),
-                    pin_hits: r.get(6)?,
-                    cover_pct: r.get(7)?,
-                },
-            ))
-        },
-    )
-}
-
-fn read_damage(conn: &Connection) -> Result<HashMap<VisitId, Vec<DamageRecord>>> {
-    by_visit(
-        conn,
-        "damage_record",
-        "id, visit_id, leaf_id, class_code, value_pct, damage_pct, notes",
-        |r| {
-            Ok(DamageRecord {
-                id: r.get(0)?,
-                visit_id: r.get(1)?,
-                leaf_id: r.get(2)?,
-                class_code: r.get(3)?,
-                value_pct: r.get(4)?,
-                damage_pct: r.get(5)?,
-                notes: r.get(6)?,
-            })
-        },
-        |d| d.visit_id,
-    )
+    let mut visits = Vec::new();
+    store::each::<Visit>(conn, |v| visits.push(v))?;
+    Ok(visits)
 }

@@ -45,6 +45,13 @@ macro_rules! id_type {
             }
         }
 
+        impl super::column::Column for $name {
+            const KIND: crate::tables::FieldType = crate::tables::FieldType::String;
+            fn decode(value: ValueRef<'_>) -> FromSqlResult<Self> {
+                super::column::parsed(value)
+            }
+        }
+
         impl FromSql for $name {
             fn column_result(value: ValueRef<'_>) -> FromSqlResult<Self> {
                 let text = value.as_str()?;

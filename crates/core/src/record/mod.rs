@@ -411,25 +411,8 @@ pub fn damage(
 
 /// The experiment's cover protocol.
 pub fn cover_protocol(w: &Writer<'_>) -> Result<CoverProtocol> {
-    let schema = crate::tables::get("cover_protocol")
-        .ok_or_else(|| Error::State("no cover_protocol table".into()))?;
-    let values = w
-        .conn()
-        .query_row(
-            &format!(
-                "SELECT {} FROM cover_protocol WHERE deleted = 0 ORDER BY id LIMIT 1",
-                schema.column_list()
-            ),
-            [],
-            |r| {
-                (0..schema.fields.len())
-                    .map(|i| r.get(i))
-                    .collect::<rusqlite::Result<Vec<_>>>()
-            },
-        )
-        .optional()?
-        .ok_or_else(|| Error::State("the experiment has no cover protocol".into()))?;
-    crate::store::from_values(schema, values)
+    crate::store::first::<CoverProtocol>(w.conn())?
+        .ok_or_else(|| Error::State("the experiment has no cover protocol".into()))
 }
 
 fn class_midpoint(w: &Writer<'_>, scale: ScaleId, code: &str, table: &str) -> Result<f64> {

@@ -27,7 +27,7 @@ use rusqlite::{Connection, OptionalExtension, TransactionBehavior, params};
 use uuid::Uuid;
 
 pub use hlc::Hlc;
-pub use rows::{Record, from_values, to_values};
+pub use rows::{Projection, Record, from_values, to_values};
 pub use writer::Writer;
 
 use crate::tables::{self, TableSchema};
@@ -320,27 +320,59 @@ impl Store {
 /// One live row of `R` by id on a connection: [`Store::get`] for code that
 /// reads inside a write transaction ([`Writer::conn`]).
 pub fn get<R: Record>(conn: &Connection, id: Uuid) -> Result<Option<R>> {
-    let schema = table_of::<R>();
-    let sql = format!(
-        "SELECT {} FROM {} WHERE id = ?1 AND deleted = 0",
-        schema.column_list(),
-        schema.name
-    );
-    let values = conn
-        .prepare_cached(&sql)?
-        .query_row([id.to_string()], |r| read_values(r, schema.fields.len()))
-        .optional()?;
-    values.map(|v| from_values(schema, v)).transpose()
+    let sql = format!("{} WHERE id = ?1 AND deleted = 0", R::SELECT);
+    conn.prepare_cached(&sql)?
+        .query_row([id.to_string()], R::from_row)
+        .optional()
+        .map_err(|e| rows::read_error(R::TABLE, e))
 }
 
 /// Every live row of `R` on a connection, ordered by id: [`Store::list`] for
 /// code that reads inside a write transaction ([`Writer::conn`]).
 pub fn list<R: Record>(conn: &Connection) -> Result<Vec<R>> {
-    let schema = table_of::<R>();
-    rows(conn, schema)?
-        .into_iter()
-        .map(|v| from_values(schema, v))
-        .collect()
+    let sql = format!("{} WHERE deleted = 0 ORDER BY id", R::SELECT);
+    let mut stmt = conn.prepare_cached(&sql)?;
+    let records = stmt.query_map([], R::from_row)?;
+    records
+        .collect::<rusqlite::Result<_>>()
+        .map_err(|e| rows::read_error(R::TABLE, e))
+}
+
+/// The first live row of `R` by id, if there is one.
+pub fn first<R: Record>(conn: &Connection) -> Result<Option<R>> {
+    let sql = format!("{} WHERE deleted = 0 ORDER BY id LIMIT 1", R::SELECT);
+    conn.prepare_cached(&sql)?
+        .query_row([], R::from_row)
+        .optional()
+        .map_err(|e| rows::read_error(R::TABLE, e))
+}
+
+/// Every live row of `R`, handed to `f` in the order the table stores them
+/// (no sort: for readers that index the rows themselves).
+pub fn each<R: Record>(conn: &Connection, mut f: impl FnMut(R)) -> Result<()> {
+    let sql = format!("{} WHERE deleted = 0", R::SELECT);
+    let mut stmt = conn.prepare_cached(&sql)?;
+    let mut found = stmt.query([])?;
+    while let Some(r) = found.next()? {
+        f(R::from_row(r).map_err(|e| rows::read_error(R::TABLE, e))?);
+    }
+    Ok(())
+}
+
+/// [`each`] for a projection: its key and its columns of every live row.
+pub fn each_projected<P: Projection>(
+    conn: &Connection,
+    mut f: impl FnMut(P::Key, P),
+) -> Result<()> {
+    let table = <P::Of as Record>::TABLE;
+    let sql = format!("{} WHERE deleted = 0", P::select());
+    let mut stmt = conn.prepare_cached(&sql)?;
+    let mut found = stmt.query([])?;
+    while let Some(r) = found.next()? {
+        let (key, row) = P::from_row(r).map_err(|e| rows::read_error(table, e))?;
+        f(key, row);
+    }
+    Ok(())
 }
 
 /// The live rows of `R` that match a condition on its columns (`filter`, a
@@ -350,16 +382,12 @@ pub fn live_where<R: Record>(
     filter: &str,
     params: impl rusqlite::Params,
 ) -> Result<Vec<R>> {
-    let schema = table_of::<R>();
-    let sql = format!(
-        "SELECT {} FROM {} WHERE deleted = 0 AND ({filter}) ORDER BY id",
-        schema.column_list(),
-        schema.name
-    );
+    let sql = format!("{} WHERE deleted = 0 AND ({filter}) ORDER BY id", R::SELECT);
     let mut stmt = conn.prepare_cached(&sql)?;
-    let rows = stmt.query_map(params, |r| read_values(r, schema.fields.len()))?;
-    rows.map(|v| from_values(schema, v?))
-        .collect::<Result<Vec<R>>>()
+    let records = stmt.query_map(params, R::from_row)?;
+    records
+        .collect::<rusqlite::Result<_>>()
+        .map_err(|e| rows::read_error(R::TABLE, e))
 }
 
 /// This device's human name, on a connection.

@@ -1,7 +1,10 @@
-//! Conversion between typed records (serde structs in [`crate::model`]) and
-//! rows of stored values, driven by the table schema: a struct's serde field
-//! names must be the schema's column names.
+//! Typed records: the [`Record`] and [`Projection`] traits (implemented by the
+//! macros of [`crate::model`], which generate the readers), and the conversion
+//! between records and rows of stored values driven by the table schema (a
+//! struct's serde field names are the schema's column names), which writes,
+//! import, export and sync use.
 
+use rusqlite::Row;
 use rusqlite::types::Value;
 use serde::Serialize;
 use serde::de::DeserializeOwned;
@@ -11,12 +14,57 @@ use uuid::Uuid;
 use crate::tables::{FieldType, TableSchema};
 use crate::{Error, Result};
 
-/// A typed row of one table.
-pub trait Record: Serialize + DeserializeOwned {
+/// A typed row of one table, declared with `records!` in [`crate::model`].
+/// Reads go through [`Record::from_row`] (one typed read per column); writes
+/// through [`to_values`].
+pub trait Record: Serialize + DeserializeOwned + Sized {
     /// The table (and Table Schema) name.
     const TABLE: &'static str;
+    /// The columns, in the schema's order (= the struct's fields).
+    const COLUMNS: &'static [&'static str];
+    /// The schema type of each column.
+    const KINDS: &'static [FieldType];
+    /// `SELECT <every column> FROM <table>`, to which a reader adds its
+    /// `WHERE` and `ORDER BY`.
+    const SELECT: &'static str;
     /// The row's id.
     fn id(&self) -> Uuid;
+    /// The record from a row of [`Record::SELECT`]: column `i` is field `i`,
+    /// read as [`from_values`] reads it.
+    fn from_row(row: &Row<'_>) -> rusqlite::Result<Self>;
+}
+
+/// Some columns of a record, read keyed by another of its columns (declared
+/// with `projection!` in [`crate::model`], which checks the names against the
+/// record's when it compiles).
+pub trait Projection: Sized {
+    /// The record projected.
+    type Of: Record;
+    /// The type of the key column.
+    type Key;
+    /// The key column, then the projected ones.
+    const COLUMNS: &'static [&'static str];
+    /// The key and the projection from a row of [`Projection::select`].
+    fn from_row(row: &Row<'_>) -> rusqlite::Result<(Self::Key, Self)>;
+    /// `SELECT <key>, <columns> FROM <table>`.
+    fn select() -> String {
+        format!(
+            "SELECT {} FROM {}",
+            Self::COLUMNS.join(", "),
+            <Self::Of as Record>::TABLE
+        )
+    }
+}
+
+/// A reader's error: a stored value that does not fit its field is reported
+/// as [`from_values`] reports it.
+pub(crate) fn read_error(table: &str, e: rusqlite::Error) -> Error {
+    match e {
+        rusqlite::Error::FromSqlConversionFailure(..) | rusqlite::Error::InvalidColumnType(..) => {
+            Error::State(format!("{table}: stored row does not fit its record: {e}"))
+        }
+        e => e.into(),
+    }
 }
 
 /// A record as stored values, in the schema's column order.

@@ -78,12 +78,7 @@ impl<'a> Writer<'a> {
 
     /// A live row of `R` by id, as this transaction sees it.
     pub fn get<R: Record>(&self, id: Uuid) -> Result<Option<R>> {
-        let schema = table_of::<R>();
-        match self.live_row(schema, &id.to_string()) {
-            Ok(values) => super::rows::from_values(schema, values).map(Some),
-            Err(Error::NotFound { .. }) => Ok(None),
-            Err(e) => Err(e),
-        }
+        super::get(&self.tx, id)
     }
 
     /// Insert a typed record.
