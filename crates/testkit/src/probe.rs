@@ -13,9 +13,9 @@
 //! ```
 //!
 //! Answers: `{"results": [...]}` with one item per community or sample
-//! ([`Diversity`](super::diversity::Diversity), a list of Hill numbers, or a
-//! [`Summary`](super::summary::Summary) or `null`), or `{"steps": [...]}` of
-//! [`KmStep`](super::survival::KmStep). Undefined values are `null`.
+//! ([`Diversity`](fieldcage_core::analysis::diversity::Diversity), a list of Hill numbers, or a
+//! [`Summary`](fieldcage_core::analysis::summary::Summary) or `null`), or `{"steps": [...]}` of
+//! [`KmStep`](fieldcage_core::analysis::survival::KmStep). Undefined values are `null`.
 
 use serde::Deserialize;
 use serde_json::{Value as Json, json};

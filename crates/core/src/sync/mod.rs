@@ -25,7 +25,7 @@
 //! settled with [`conflicts`] and [`resolve_conflict`].
 //!
 //! The target a database syncs with on its own is a local setting
-//! ([`saved_target`], [`save_target`]); [`crate::service::auto_sync`] watches
+//! ([`saved_target`], [`save_target`]); `fieldcage_ops::auto_sync` (the operation set) watches
 //! it and syncs when it is reachable and something is new.
 //!
 //! Never keep the live database in the target or any cloud-synced folder;
