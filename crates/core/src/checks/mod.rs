@@ -249,7 +249,7 @@ pub fn raise(season: &Season) -> Vec<Flag> {
 pub fn check(conn: &rusqlite::Connection, scope: &Scope, today: NaiveDate) -> Result<Vec<Flag>> {
     let season = Season::load(conn, today, Limits::DEFAULT)?;
     let mut flags = raise(&season);
-    flags.retain(|f| scope.contains(season.start, f.day, &f.cage));
+    flags.retain(|f| scope.contains(season.calendar.start, f.day, &f.cage));
     Ok(flags)
 }
 

@@ -29,9 +29,7 @@ pub struct Cage {
 /// The season as the rules see it.
 #[derive(Debug)]
 pub struct Season {
-    /// Start date of the experiment (day 0).
-    pub start: NaiveDate,
-    /// The experiment's calendar (start and offset).
+    /// The experiment's calendar (day 0 and the UTC offset).
     pub calendar: Calendar,
     /// The checks run as of the end of this day.
     pub today: NaiveDate,
@@ -144,7 +142,6 @@ impl Season {
         }
 
         Ok(Season {
-            start: experiment.start_date,
             calendar: Calendar::of(&experiment)?,
             today,
             limits,

@@ -119,11 +119,11 @@ pub fn run(store: &mut Store, scope: &Scope, today: NaiveDate) -> Result<Report>
         let changes = reconcile(w, &season, scope, &raised)?;
         let flags: Vec<ReportedFlag> = reported(w.conn(), &season)?
             .into_iter()
-            .filter(|f| scope.contains(season.start, f.day, &f.cage))
+            .filter(|f| scope.contains(season.calendar.start, f.day, &f.cage))
             .collect();
         let count = |status| flags.iter().filter(|f| f.status == status).count();
         Ok(Report {
-            scope: scope.describe(season.start),
+            scope: scope.describe(season.calendar.start),
             today,
             open: count(FlagStatus::Open),
             open_errors: flags
@@ -152,7 +152,7 @@ fn reconcile(
         .collect();
     let stored_in_scope = |s: &StoredFlag| {
         scope.contains(
-            season.start,
+            season.calendar.start,
             s.day,
             labels.get(&s.enclosure_id).copied().unwrap_or_default(),
         )
@@ -172,7 +172,7 @@ fn reconcile(
             )));
         }
         let existing = stored.remove(&key);
-        let in_scope = scope.contains(season.start, flag.day, &flag.cage)
+        let in_scope = scope.contains(season.calendar.start, flag.day, &flag.cage)
             || existing.as_ref().is_some_and(stored_in_scope);
         if !in_scope {
             continue;
@@ -245,7 +245,7 @@ fn reported(conn: &Connection, season: &Season) -> Result<Vec<ReportedFlag>> {
             let cage = labels
                 .get(&f.enclosure_id)
                 .map_or_else(|| f.enclosure_id.to_string(), |l| (*l).to_owned());
-            as_reported(f, cage, season.start)
+            as_reported(f, cage, season.calendar.start)
         })
         .collect();
     out.sort_by(|a, b| {

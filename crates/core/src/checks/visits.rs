@@ -136,14 +136,14 @@ pub fn check(season: &Season, out: &mut Vec<Flag>) {
                     ),
                     "Correct the visit's date and time (check the tablet's clock).".to_owned(),
                 ));
-            } else if date < season.start {
+            } else if date < season.calendar.start {
                 out.push(BEFORE_START.flag(
                     cage,
                     day,
                     visit.id,
                     format!(
                         "The {} visit is dated {when}, before the experiment started ({}).",
-                        visit.kind, season.start
+                        visit.kind, season.calendar.start
                     ),
                     "Correct the visit's date and time (check the tablet's clock).".to_owned(),
                 ));
