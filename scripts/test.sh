@@ -115,4 +115,7 @@ TAURI_DRIVER="$PWD/.tools/bin/tauri-driver" FIELDCAGE_TABLET="$PWD/target/debug/
 say "documentation builds without warnings (cargo doc)"
 RUSTDOCFLAGS="-D warnings" cargo doc --no-deps --locked --quiet
 
+say "documentation examples (cargo test --doc; one shows the store's connection is private)"
+cargo test --doc --workspace --exclude fieldcage-tablet --locked --quiet
+
 say "all tests passed"

@@ -399,13 +399,13 @@ fn a_zero_mean_makes_the_ratio_undefined_and_the_row_says_so() {
 }
 
 fn w_cages(w: &fieldcage_core::store::Writer<'_>) -> fieldcage_core::Result<Vec<EnclosureId>> {
-    let mut stmt = w
-        .conn()
-        .prepare("SELECT id FROM enclosure WHERE deleted = 0 ORDER BY id")?;
-    let ids = stmt
-        .query_map([], |r| r.get::<_, EnclosureId>(0))?
-        .collect::<rusqlite::Result<Vec<_>>>()?;
-    Ok(ids)
+    // Inside the write transaction: read through the writer.
+    Ok(
+        fieldcage_core::store::list::<fieldcage_core::model::Enclosure>(w)?
+            .into_iter()
+            .map(|e| e.id)
+            .collect(),
+    )
 }
 
 #[test]

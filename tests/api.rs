@@ -595,3 +595,57 @@ async fn review_runs_the_checks_and_confirm_keeps_the_note() {
         "a confirmed flag stays confirmed when the checks run again"
     );
 }
+
+/// A damaged database is not a conflict the person can settle: a broken
+/// invariant is 500 `internal` (its message for a bug report), while a
+/// person's conflict stays 409 `conflict` (#14: both were 409).
+#[tokio::test]
+async fn a_broken_invariant_is_internal_and_a_persons_conflict_is_a_conflict() {
+    let api = api();
+    let (cage, sheet) = first_cage(&api).await;
+    let slug = taxon(&sheet, "SLUG");
+    let census = api
+        .ok(
+            "save_census",
+            json!({ "enclosure_id": cage, "taxon_id": slug, "alive": 4 }),
+        )
+        .await;
+    let record = json!({ "table": "census", "id": census["record"]["id"] });
+
+    // The person's conflict: a deleted record cannot be undone, only entered
+    // again; nothing is written.
+    api.ok("delete_record", record.clone()).await;
+    let before = api.stored();
+    let (status, problem) = api.call("undo", record.clone()).await;
+    assert_eq!(
+        (status, problem["error"]["code"].as_str()),
+        (StatusCode::CONFLICT, Some("conflict")),
+        "{problem}"
+    );
+    assert_eq!(api.stored(), before, "a refused undo writes nothing");
+
+    // A broken invariant: the change log's entry of the insert is damaged
+    // (as a bad disk or another program might leave it).
+    let damaged = rusqlite::Connection::open(&api.db)
+        .unwrap()
+        .execute(
+            "UPDATE change_log SET new_value = '[not a packed insert' \
+             WHERE table_name = 'census' AND row_id = ?1 AND op = 'insert'",
+            [census["record"]["id"].as_str().unwrap()],
+        )
+        .unwrap();
+    assert_eq!(damaged, 1);
+    let (status, problem) = api.call("history", record).await;
+    assert_eq!(
+        (status, problem["error"]["code"].as_str()),
+        (StatusCode::INTERNAL_SERVER_ERROR, Some("internal")),
+        "{problem}"
+    );
+    assert!(
+        problem["error"]["message"]
+            .as_str()
+            .unwrap()
+            .contains("change log entry"),
+        "{problem}"
+    );
+}

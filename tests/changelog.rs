@@ -1,6 +1,7 @@
 //! The change log: every write is in it, in the same transaction; a rejected
 //! write leaves nothing behind; the tables can be rebuilt from the log.
 
+use crate::util::Raw;
 use std::collections::BTreeMap;
 
 use fieldcage_core::model::*;
@@ -13,8 +14,8 @@ use crate::util::{Temp, count, demo_store, log_entries, snapshot};
 fn replay(store: &fieldcage_core::Store) -> BTreeMap<(String, String), BTreeMap<String, Value>> {
     let mut rows: BTreeMap<(String, String), BTreeMap<String, Value>> = BTreeMap::new();
     log_entries(store);
-    let mut stmt = store
-        .conn()
+    let conn = store.raw();
+    let mut stmt = conn
         .prepare("SELECT table_name, row_id, op, field, new_value FROM log_entry ORDER BY hlc, device_id, seq")
         .unwrap();
     let entries = stmt
@@ -86,7 +87,7 @@ fn every_write_of_the_demo_build_is_in_the_change_log() {
     let fields: usize = live.values().map(|f| f.len()).sum();
     log_entries(&store);
     let (distinct, inserts, updates, inserted_twice): (i64, i64, i64, i64) = store
-        .conn()
+        .raw()
         .query_row(
             "SELECT (SELECT count(*) FROM (SELECT DISTINCT table_name, row_id, field FROM log_entry)), \
                     (SELECT count(*) FROM log_entry WHERE op = 'insert'), \
@@ -108,7 +109,7 @@ fn sequence_numbers_are_contiguous_and_persisted() {
     let store = demo_store(&tmp);
     log_entries(&store);
     let (min, max, n): (i64, i64, i64) = store
-        .conn()
+        .raw()
         .query_row(
             "SELECT min(seq), max(seq), count(*) FROM log_entry WHERE device_id = ?1",
             [store.device_id()],
@@ -117,7 +118,7 @@ fn sequence_numbers_are_contiguous_and_persisted() {
         .unwrap();
     assert_eq!((min, max), (1, n));
     let next: i64 = store
-        .conn()
+        .raw()
         .query_row("SELECT next_seq FROM local_device", [], |r| r.get(0))
         .unwrap();
     assert_eq!(next, n + 1);
@@ -185,7 +186,7 @@ fn updates_and_deletes_log_old_and_new_values() {
     let changed = store.write(|w| w.update(&c)).unwrap();
     assert_eq!(changed, 1, "only alive changed");
     let (op, old, new): (String, i64, i64) = store
-        .conn()
+        .raw()
         .query_row(
             "SELECT op, old_value, new_value FROM change_log WHERE row_id = ?1 AND field = 'alive' ORDER BY seq DESC LIMIT 1",
             [c.id.to_string()],
@@ -206,7 +207,7 @@ fn updates_and_deletes_log_old_and_new_values() {
     assert!(store.get::<Census>(c.id.uuid()).unwrap().is_none());
     // A tombstone: the row is still there, flagged, and the delete is logged.
     let (deleted, logged): (i64, i64) = store
-        .conn()
+        .raw()
         .query_row(
             "SELECT (SELECT deleted FROM census WHERE id = ?1), \
                     (SELECT count(*) FROM change_log WHERE row_id = ?1 AND op = 'delete')",
@@ -294,8 +295,8 @@ fn the_entries_of_every_row_are_found_through_the_row_index() {
 
     let mut scanned: BTreeMap<(String, String), Vec<(String, i64)>> = BTreeMap::new();
     log_entries(&store);
-    let mut stmt = store
-        .conn()
+    let conn = store.raw();
+    let mut stmt = conn
         .prepare("SELECT table_name, row_id, device_id, seq FROM log_entry ORDER BY device_id, seq")
         .unwrap();
     for row in stmt
@@ -321,14 +322,14 @@ fn the_entries_of_every_row_are_found_through_the_row_index() {
     assert_eq!(devices.len(), 2, "entries of both devices");
     for ((table, row_id), expected) in &scanned {
         let found: Vec<(String, i64)> =
-            fieldcage_core::store::log::row_entries(store.conn(), table, row_id)
+            fieldcage_core::store::log::row_entries(&store, table, row_id)
                 .unwrap()
                 .into_iter()
                 .map(|e| (e.device_id, e.seq))
                 .collect();
         assert_eq!(&found, expected, "{table} {row_id}");
     }
-    let plan = fieldcage_core::store::log::row_entries_plan(store.conn()).unwrap();
+    let plan = fieldcage_core::store::log::row_entries_plan(&store.raw()).unwrap();
     assert!(
         plan.iter().any(|p| p.contains("INDEX change_log_row_idx"))
             && !plan.iter().any(|p| p.starts_with("SCAN")),

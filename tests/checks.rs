@@ -11,6 +11,7 @@
 //! (invented): 10 slugs stocked, restock below 5, census every 3 days from day
 //! 3 with 1 grace day.
 
+use crate::util::Raw;
 use chrono::{DateTime, Duration, FixedOffset, NaiveDate, TimeZone};
 use fieldcage_core::checks::{self, Flag, Rule, Scope};
 use fieldcage_core::model::*;
@@ -197,15 +198,11 @@ impl Fx {
     }
 
     fn flags_on(&self, rule: &Rule, today: i64) -> Vec<Flag> {
-        checks::check(
-            self.store.conn(),
-            &Scope::Season,
-            start() + Duration::days(today),
-        )
-        .unwrap()
-        .into_iter()
-        .filter(|f| f.rule_id == rule.id)
-        .collect()
+        checks::check(&self.store, &Scope::Season, start() + Duration::days(today))
+            .unwrap()
+            .into_iter()
+            .filter(|f| f.rule_id == rule.id)
+            .collect()
     }
 }
 
@@ -989,10 +986,10 @@ fn expected() -> Vec<(String, i64, String)> {
 fn the_demo_season_raises_exactly_its_planted_problems() {
     let tmp = Temp::new();
     let store = demo_store(&tmp);
-    let flags = checks::check(store.conn(), &Scope::Season, demo_check_day()).unwrap();
+    let flags = checks::check(&store, &Scope::Season, demo_check_day()).unwrap();
     assert_eq!(triples(&flags), expected());
     // Months later nothing more is due, so nothing more is raised.
-    let later = checks::check(store.conn(), &Scope::Season, start() + Duration::days(200)).unwrap();
+    let later = checks::check(&store, &Scope::Season, start() + Duration::days(200)).unwrap();
     assert_eq!(triples(&later), expected());
     // Every planted problem is found in its cage, on its day or (a missing
     // visit) on its last day on time; every other cage raises nothing.
@@ -1138,7 +1135,7 @@ fn a_corrected_value_fixes_its_flags_and_a_new_error_reopens_them() {
     assert_eq!(fixed.open, 6);
     // The fix went through the write path: the status change is in the log.
     let logged: i64 = store
-        .conn()
+        .raw()
         .query_row(
             "SELECT count(*) FROM change_log WHERE table_name = 'flag' AND row_id = ?1 \
              AND field = 'status' AND old_value = 'open' AND new_value = 'fixed'",
@@ -1308,13 +1305,13 @@ fn a_synthetic_season_raises_only_its_chance_cover_totals() {
     };
     fieldcage_testkit::synth::build(&mut store, size, 1).unwrap();
     let today = NaiveDate::from_ymd_opt(2026, 4, 30).unwrap();
-    let flags = checks::check(store.conn(), &Scope::Season, today).unwrap();
+    let flags = checks::check(&store, &Scope::Season, today).unwrap();
     assert!(
         flags.iter().all(|f| f.rule_id == "cover.total"),
         "{flags:#?}"
     );
     let off: i64 = store
-        .conn()
+        .raw()
         .query_row(
             "SELECT count(*) FROM (SELECT sum(c.cover_pct) AS total FROM visit v \
              JOIN cover_record c ON c.visit_id = v.id WHERE v.kind = 'cover' \
@@ -1383,6 +1380,25 @@ fn route_of(fx: &Fx, label: &str, day: i64) -> (Vec<i64>, Vec<i64>, String) {
     )
 }
 
+/// What the cage's sheet lists as still to do at the start of `day`: census
+/// days late (planned earlier, still in their grace days).
+fn sheet_late(fx: &Fx, cage: EnclosureId, day: i64) -> Vec<i64> {
+    let date = start() + Duration::days(day);
+    let sheet = service_on(fx)
+        .call(
+            "sheet",
+            serde_json::json!({ "enclosure_id": cage, "date": date }),
+        )
+        .unwrap();
+    sheet["late"]
+        .as_array()
+        .expect("the sheet lists late visits")
+        .iter()
+        .filter(|p| p["kind"] == "census")
+        .map(|p| p["day"].as_i64().unwrap())
+        .collect()
+}
+
 /// Cages of treatment S with their day-0 stocking and cover made, so that
 /// only the censuses are in question.
 fn cages_ready(fx: &mut Fx, n: usize) -> Vec<(EnclosureId, String)> {
@@ -1417,12 +1433,18 @@ fn regression_14_route_and_checks_agree_on_which_visits_are_made_and_missed() {
     // before give one answer, every day, in every cage (a rule of our own:
     // common practice of a schedule with grace days).
     for day in 1..=12 {
-        for label in [&la, &lb, &lc] {
-            let (overdue, _, _) = route_of(&fx, label, day);
+        for (id, label) in &cages {
+            let (overdue, late, _) = route_of(&fx, label, day);
             assert_eq!(
                 overdue,
                 missing_census(&fx, label, day - 1),
                 "cage {label} on day {day}: route overdue vs checks missing"
+            );
+            // The sheet says what the route says is still to do.
+            assert_eq!(
+                sheet_late(&fx, *id, day),
+                late,
+                "cage {label} on day {day}: sheet late vs route late"
             );
         }
     }

@@ -117,6 +117,39 @@ fn errors_go_to_stderr_with_a_failing_exit_code() {
     assert!(String::from_utf8_lossy(&again.stderr).contains("already exists"));
 }
 
+/// `serve` takes the options the tablet app takes, from the one shared type:
+/// a bad value is refused before anything opens, naming the option and the
+/// value, and no database is made.
+#[test]
+fn serve_refuses_a_bad_shared_option_naming_it() {
+    let tmp = Temp::new();
+    let cwd = tmp.dir.path();
+    for (args, wanted) in [
+        (&["--sync-every", "-2"][..], ["--sync-every", "0 or more"]),
+        (&["--sync-every", "often"][..], ["--sync-every", "often"]),
+        (&["--today", "soon"][..], ["--today", "soon"]),
+    ] {
+        let mut all = vec!["serve", "--db", "s.db", "--demo"];
+        all.extend_from_slice(args);
+        let out = fieldcage(&all, cwd);
+        assert_eq!(out.status.code(), Some(2), "{args:?}");
+        let err = String::from_utf8_lossy(&out.stderr);
+        assert!(wanted.iter().all(|w| err.contains(w)), "{args:?}: {err}");
+        assert!(!cwd.join("s.db").exists(), "{args:?}: no database made");
+    }
+    let help = ok(&fieldcage(&["serve", "--help"], cwd));
+    for option in [
+        "--db",
+        "--demo",
+        "--today",
+        "--sync-every",
+        "--port",
+        "--lan",
+    ] {
+        assert!(help.contains(option), "serve --help lists {option}: {help}");
+    }
+}
+
 fn exit_code(out: &Output) -> Option<i32> {
     out.status.code()
 }

@@ -143,7 +143,7 @@ fn check_after_kill(
 ) {
     let lines = crash_writer::read_log(log).unwrap();
     let store = Store::open(db).unwrap_or_else(|e| panic!("{replay}: cannot reopen: {e}"));
-    let conn = store.conn();
+    let conn = &own_connection(&store);
     let integrity: String = conn
         .query_row("PRAGMA integrity_check", [], |r| r.get(0))
         .unwrap();
@@ -190,7 +190,7 @@ fn check_after_kill(
         }
     }
     if let Some((_, key, value)) = in_flight {
-        match stored(&store, &key) {
+        match stored(conn, &key) {
             Some(row) if row.value == value => {
                 tally.in_flight_committed += 1;
                 known.insert(key, row);
@@ -199,7 +199,7 @@ fn check_after_kill(
         }
     }
     for (key, expected) in known.iter() {
-        let row = stored(&store, key)
+        let row = stored(conn, key)
             .unwrap_or_else(|| panic!("{replay}: acknowledged save {key:?} is missing"));
         assert_eq!(
             &row, expected,
@@ -235,13 +235,21 @@ fn check_after_kill(
 }
 
 /// The live row a save key points at, if there is one (and never two).
-fn stored(store: &Store, key: &SaveKey) -> Option<Known> {
+/// The test's own read connection to a store's file (the store's own
+/// connection stays inside the core).
+fn own_connection(store: &Store) -> rusqlite::Connection {
+    let conn = rusqlite::Connection::open(store.path()).expect("the test's connection");
+    conn.busy_timeout(std::time::Duration::from_secs(10))
+        .expect("a busy timeout");
+    conn
+}
+
+fn stored(conn: &rusqlite::Connection, key: &SaveKey) -> Option<Known> {
     let (table, column, kind) = match key.kind {
         SaveKind::Census => ("census", "alive", "census"),
         SaveKind::Cover => ("cover_record", "value_pct", "cover"),
     };
-    let mut stmt = store
-        .conn()
+    let mut stmt = conn
         .prepare(&format!(
             "SELECT r.id, r.{column} FROM {table} r JOIN visit v ON v.id = r.visit_id \
              WHERE v.enclosure_id = ?1 AND v.kind = ?2 AND substr(v.visited_at, 1, 10) = ?3 \
@@ -289,6 +297,7 @@ fn the_writer_logs_a_try_and_an_ack_for_each_save() {
     let lines = crash_writer::read_log(&log).unwrap();
     assert_eq!(lines.len(), 12);
     let store = Store::open(&db).unwrap();
+    let conn = &own_connection(&store);
     let mut last: BTreeMap<SaveKey, Known> = BTreeMap::new();
     for (i, pair) in lines.chunks(2).enumerate() {
         let [
@@ -299,7 +308,7 @@ fn the_writer_logs_a_try_and_an_ack_for_each_save() {
             panic!("save {}: not a try and an ack: {pair:?}", i + 1);
         };
         assert_eq!((*n, *acked), (i as u64 + 1, i as u64 + 1));
-        let row = stored(&store, key).expect("the saved row");
+        let row = stored(conn, key).expect("the saved row");
         assert_eq!(&row.id, id);
         last.insert(
             key.clone(),
@@ -310,6 +319,6 @@ fn the_writer_logs_a_try_and_an_ack_for_each_save() {
         );
     }
     for (key, expected) in &last {
-        assert_eq!(stored(&store, key).as_ref(), Some(expected));
+        assert_eq!(stored(conn, key).as_ref(), Some(expected));
     }
 }

@@ -1,6 +1,7 @@
 //! The demo season: reproducible, plausible for its invented scenario, and
 //! shipped in demo_data/ without drift.
 
+use crate::util::Raw;
 use std::path::Path;
 
 use fieldcage_core::model::*;
@@ -50,7 +51,7 @@ fn the_demo_season_is_plausible_for_its_scenario() {
     let store = demo_store(&tmp);
     let mean_damage = |treatment: &str| -> f64 {
         store
-            .conn()
+            .raw()
             .query_row(
                 "SELECT avg(d.damage_pct) FROM damage_record d JOIN visit v ON v.id = d.visit_id \
                  JOIN assignment a ON a.enclosure_id = v.enclosure_id JOIN treatment t ON t.id = a.treatment_id \

@@ -5,6 +5,7 @@
 //! file under its final name. The failing steps go through the same seam as
 //! production (`fieldcage_core::disk::Disk`), delegating to the real file system.
 
+use crate::util::Raw;
 use std::cell::{Cell, RefCell};
 use std::collections::BTreeMap;
 use std::fs::File;
@@ -358,8 +359,8 @@ fn sync_survives_a_failure_at_every_write_step() {
         );
         // What the database records as written is in the target, whole.
         let mut recorded = 0;
-        let mut stmt = store
-            .conn()
+        let conn = store.raw();
+        let mut stmt = conn
             .prepare("SELECT first_seq, last_seq, sha256 FROM sync_written")
             .unwrap();
         let rows = stmt

@@ -8,6 +8,7 @@
 //! acknowledged save must be there; with `synchronous=NORMAL` the harness
 //! must find lost acknowledged saves, which shows that it can see a loss.
 
+use crate::util::Raw;
 use chrono::NaiveDate;
 use fieldcage_core::Store;
 use fieldcage_core::model::{CoverRecord, Enclosure, Role, Taxon};
@@ -111,14 +112,13 @@ fn run(
     template.backup_to(tmp.path("season.db")).unwrap();
     let power = Power::watch(tmp.dir.path()).unwrap();
     let store = Store::open(power.uri("season.db")).unwrap();
+    // Settings of the store's own connection (a test hook).
     store
-        .conn()
-        .execute_batch(&format!("PRAGMA synchronous = {synchronous};"))
+        .set_pragma_for_test("synchronous", synchronous)
         .unwrap();
     if let Some(pages) = checkpoint_pages {
         store
-            .conn()
-            .execute_batch(&format!("PRAGMA wal_autocheckpoint = {pages};"))
+            .set_pragma_for_test("wal_autocheckpoint", &pages.to_string())
             .unwrap();
     }
     let service = Service::new(store).with_today(start() + chrono::Days::new(SIZE.visits as u64));
@@ -157,13 +157,13 @@ fn run(
     drop(power);
     let store = Store::open(tmp.path("season.db")).unwrap();
     let integrity: String = store
-        .conn()
+        .raw()
         .query_row("PRAGMA integrity_check", [], |r| r.get(0))
         .unwrap();
     let mut lost = 0;
     for (id, percent) in &acknowledged {
         let logged: i64 = store
-            .conn()
+            .raw()
             .query_row(
                 "SELECT count(*) FROM change_log WHERE table_name = 'cover_record' AND row_id = ?1",
                 [id.to_string()],

@@ -1,5 +1,6 @@
 //! Field-entry commands: derived percents and refusals.
 
+use crate::util::Raw;
 use chrono::DateTime;
 use fieldcage_core::Store;
 use fieldcage_core::model::*;
@@ -255,8 +256,8 @@ fn zero_and_not_assessed_are_kept_apart() {
             Ok(())
         })
         .unwrap();
-    let rows: Vec<(Option<i64>, Option<i64>)> = store
-        .conn()
+    let conn = store.raw();
+    let rows: Vec<(Option<i64>, Option<i64>)> = conn
         .prepare("SELECT alive, missing FROM census ORDER BY taxon_id = ?1 DESC")
         .unwrap()
         .query_map([slug], |r| Ok((r.get(0)?, r.get(1)?)))
@@ -300,7 +301,9 @@ fn damage_classes_convert_to_midpoints_and_percent_is_kept() {
 }
 
 fn store_leaf(w: &fieldcage_core::store::Writer<'_>) -> LeafId {
-    w.conn()
-        .query_row("SELECT id FROM tagged_leaf LIMIT 1", [], |r| r.get(0))
+    // Inside the write transaction: read through the writer.
+    fieldcage_core::store::first::<fieldcage_core::model::TaggedLeaf>(w)
         .unwrap()
+        .expect("a tagged leaf")
+        .id
 }

@@ -4,6 +4,7 @@
 //! stored: the SQLite checks apply to the stored tables only, and the
 //! analysis row structs must agree with their schemas instead.
 
+use crate::util::Raw;
 use fieldcage_core::model::*;
 use fieldcage_core::store::{self, Projection, Record};
 use fieldcage_core::tables::{self, FieldType};
@@ -16,8 +17,8 @@ fn sqlite_tables_match_the_table_schemas() {
     let tmp = Temp::new();
     let store = tmp.store("a.db");
     for schema in tables::all() {
-        let mut stmt = store
-            .conn()
+        let conn = store.raw();
+        let mut stmt = conn
             .prepare(&format!("PRAGMA table_info({})", schema.name))
             .unwrap();
         let columns: Vec<(String, String, bool, bool)> = stmt
@@ -67,8 +68,8 @@ fn foreign_keys_in_sqlite_match_the_table_schemas() {
     let tmp = Temp::new();
     let store = tmp.store("a.db");
     for schema in tables::all() {
-        let mut stmt = store
-            .conn()
+        let conn = store.raw();
+        let mut stmt = conn
             .prepare(&format!("PRAGMA foreign_key_list({})", schema.name))
             .unwrap();
         let mut sql: Vec<(String, String)> = stmt
@@ -195,7 +196,7 @@ fn reads_alike<R: Record + PartialEq + std::fmt::Debug>(store: &fieldcage_core::
         assert_eq!(store.get::<R>(r.id()).unwrap().as_ref(), Some(r));
     }
     let mut unordered = Vec::new();
-    store::each::<R>(store.conn(), |r| unordered.push(r)).unwrap();
+    store::each::<R>(&store, |r| unordered.push(r)).unwrap();
     unordered.sort_by_key(Record::id);
     assert_eq!(unordered, generated, "{}: every row once", R::TABLE);
     generated.len()
@@ -259,8 +260,7 @@ fn the_cover_projection_reads_the_records_columns() {
     let tmp = Temp::new();
     let store = demo_store(&tmp);
     let mut projected: Vec<(VisitId, CoverRow)> = Vec::new();
-    store::each_projected::<CoverRow>(store.conn(), |visit, row| projected.push((visit, row)))
-        .unwrap();
+    store::each_projected::<CoverRow>(&store, |visit, row| projected.push((visit, row))).unwrap();
     projected.sort_by_key(|(_, r)| r.id);
     let from_records: Vec<(VisitId, CoverRow)> = store
         .list::<CoverRecord>()
@@ -463,7 +463,7 @@ fn analysis_tables_are_not_stored_and_refer_to_real_tables() {
         );
         assert!(tables::get(&schema.name).is_none(), "{}", schema.name);
         let in_sqlite: i64 = store
-            .conn()
+            .raw()
             .query_row(
                 "SELECT count(*) FROM sqlite_schema WHERE name = ?1",
                 [&schema.name],

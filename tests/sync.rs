@@ -6,6 +6,7 @@
 //! Check values here are behaviours of the design (docs/methods.md §10.1), not
 //! published numbers; dates and counts are invented for the tests.
 
+use crate::util::Raw;
 use std::fs;
 use std::path::{Path, PathBuf};
 
@@ -45,7 +46,7 @@ fn set_alive(d: &mut Device, id: CensusId, alive: i64) {
 
 fn alive(d: &Device, id: CensusId) -> Option<i64> {
     d.store
-        .conn()
+        .raw()
         .query_row(
             "SELECT alive FROM census WHERE id = ?1",
             [id.to_string()],
@@ -68,7 +69,7 @@ fn files_in(dir: &Path) -> Vec<PathBuf> {
 fn logged_values(d: &Device, row: &str, field: &str) -> Vec<Value> {
     crate::util::log_entries(&d.store);
     d.store
-        .conn()
+        .raw()
         .prepare("SELECT new_value FROM log_entry WHERE row_id = ?1 AND field = ?2 ORDER BY hlc")
         .unwrap()
         .query_map([row, field], |r| r.get(0))
@@ -137,7 +138,7 @@ fn edits_travel_both_ways_and_a_repeat_sync_changes_nothing() {
     // The remote entries keep their own device and seq: never sent again.
     let foreign: i64 = a
         .store
-        .conn()
+        .raw()
         .query_row(
             "SELECT count(*) FROM change_log WHERE device_id = ?1",
             [b.store.device_id()],
@@ -377,7 +378,7 @@ fn every_sqlite_type_survives_a_change_set_exactly() {
     assert_eq!(snapshot_row(&a, c0), snapshot_row(&b, c0));
     let x: f64 = b
         .store
-        .conn()
+        .raw()
         .query_row(
             "SELECT x_m FROM enclosure WHERE id = ?1",
             [c0.to_string()],
@@ -391,7 +392,7 @@ fn every_sqlite_type_survives_a_change_set_exactly() {
     );
     let kinds: Vec<String> = b
         .store
-        .conn()
+        .raw()
         .prepare("SELECT typeof(x_m), typeof(height_m), typeof(notes), typeof(label) FROM enclosure WHERE id = ?1")
         .unwrap()
         .query_row([c0.to_string()], |r| Ok(vec![r.get(0)?, r.get(1)?, r.get(2)?, r.get(3)?]))
@@ -401,7 +402,7 @@ fn every_sqlite_type_survives_a_change_set_exactly() {
 
 fn snapshot_row(d: &Device, id: EnclosureId) -> Vec<Value> {
     d.store
-        .conn()
+        .raw()
         .query_row(
             "SELECT * FROM enclosure WHERE id = ?1",
             [id.to_string()],
@@ -434,12 +435,13 @@ fn an_unreachable_target_is_an_error_to_retry_and_nothing_changes() {
 }
 
 /// Make the database refuse new rows of `table` (as a full disk would),
-/// through a TEMP trigger: it lives in this test's connection only.
+/// through a trigger the test adds to the file (the store's connection sees
+/// it at its next statement) and takes away again ([`allow_inserts`]).
 fn refuse_inserts(d: &Device, table: &str, reason: &str) {
     d.store
-        .conn()
+        .raw()
         .execute_batch(&format!(
-            "CREATE TEMP TRIGGER refuse_{table} BEFORE INSERT ON main.{table} \
+            "CREATE TRIGGER refuse_{table} BEFORE INSERT ON {table} \
              BEGIN SELECT RAISE(ABORT, '{reason}'); END"
         ))
         .unwrap();
@@ -447,8 +449,8 @@ fn refuse_inserts(d: &Device, table: &str, reason: &str) {
 
 fn allow_inserts(d: &Device, table: &str) {
     d.store
-        .conn()
-        .execute_batch(&format!("DROP TRIGGER temp.refuse_{table}"))
+        .raw()
+        .execute_batch(&format!("DROP TRIGGER refuse_{table}"))
         .unwrap();
 }
 
@@ -464,7 +466,7 @@ fn a_sync_run_that_cannot_be_recorded_is_reported_and_a_failed_run_keeps_its_err
     b.sync(&target);
     let rows = |d: &Device, table: &str| -> i64 {
         d.store
-            .conn()
+            .raw()
             .query_row(&format!("SELECT count(*) FROM {table}"), [], |r| r.get(0))
             .unwrap()
     };
@@ -523,7 +525,7 @@ fn a_sync_run_that_cannot_be_recorded_is_reported_and_a_failed_run_keeps_its_err
     sync::sync_once(&mut a.store, &target).unwrap_err();
     let unfinished: i64 = a
         .store
-        .conn()
+        .raw()
         .query_row(
             "SELECT count(*) FROM sync_run WHERE finished = 0",
             [],
@@ -668,7 +670,7 @@ fn a_reused_seq_with_other_content_is_refused_by_the_other_devices() {
 fn log_entries(d: &Device) -> std::collections::BTreeSet<(String, i64, String)> {
     crate::util::log_entries(&d.store);
     d.store
-        .conn()
+        .raw()
         .prepare("SELECT device_id, seq, quote(new_value) FROM log_entry")
         .unwrap()
         .query_map([], |r| Ok((r.get(0)?, r.get(1)?, r.get(2)?)))
@@ -812,7 +814,7 @@ fn a_clock_set_back_after_a_reboot_keeps_the_order_of_edits() {
     crate::util::log_entries(&a.store);
     let hlcs: Vec<i64> = a
         .store
-        .conn()
+        .raw()
         .prepare("SELECT hlc FROM log_entry WHERE row_id = ?1 AND field = 'alive' ORDER BY seq")
         .unwrap()
         .query_map([x.to_string()], |r| r.get(0))
@@ -1372,7 +1374,7 @@ fn a_change_set_refused_at_commit_leaves_the_others_of_its_batch_applied() {
     assert_eq!(alive(&b, CensusId(crate::util::fixed_id(200))), Some(4));
     let strangers: i64 = b
         .store
-        .conn()
+        .raw()
         .query_row(
             "SELECT count(*) FROM change_log WHERE device_id = ?1",
             [stranger],
@@ -1382,7 +1384,7 @@ fn a_change_set_refused_at_commit_leaves_the_others_of_its_batch_applied() {
     assert_eq!(strangers, 0, "nothing of the refused change-set stays");
     let rows: i64 = b
         .store
-        .conn()
+        .raw()
         .query_row("SELECT count(*) FROM census WHERE id = ?1", [&row], |r| {
             r.get(0)
         })

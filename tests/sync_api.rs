@@ -6,6 +6,7 @@
 //! The expected values are behaviours of the design (docs/methods.md §10.1); the
 //! dates and counts are invented for the tests.
 
+use crate::util::Raw;
 use std::path::{Path, PathBuf};
 use std::sync::Arc;
 use std::time::{Duration, Instant};
@@ -594,7 +595,7 @@ async fn a_look_syncs_only_when_the_target_is_back_and_something_is_new() {
     let runs = |t: &Tablet| -> i64 {
         fieldcage_core::Store::open(&t.db)
             .unwrap()
-            .conn()
+            .raw()
             .query_row("SELECT count(*) FROM sync_run", [], |r| r.get(0))
             .unwrap()
     };

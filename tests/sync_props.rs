@@ -14,6 +14,7 @@
 //! (common practice for per-field last-writer-wins replication; no
 //! published check values apply).
 
+use crate::util::Raw;
 use std::collections::{BTreeMap, BTreeSet};
 use std::fs;
 use std::path::PathBuf;
@@ -277,7 +278,7 @@ impl Scenario {
 }
 
 fn last_seq(d: &Device) -> i64 {
-    fieldcage_core::store::log::last_seq(d.store.conn(), d.store.device_id())
+    fieldcage_core::store::log::last_seq(&d.store.raw(), d.store.device_id())
         .unwrap()
         .unwrap_or(0)
 }
@@ -487,8 +488,8 @@ pub fn model(entries: &[Entry], k: &Knowledge) -> Expected {
 pub fn observed(store: &fieldcage_core::Store) -> Expected {
     let mut out = BTreeMap::new();
     for schema in tables::all() {
-        let mut stmt = store
-            .conn()
+        let conn = store.raw();
+        let mut stmt = conn
             .prepare(&format!("SELECT * FROM {} ORDER BY id", schema.name))
             .unwrap();
         let n = stmt.column_count();
@@ -500,8 +501,8 @@ pub fn observed(store: &fieldcage_core::Store) -> Expected {
         out.insert(schema.name.clone(), rows);
     }
     let mut conflicts = BTreeSet::new();
-    let mut stmt = store
-        .conn()
+    let conn = store.raw();
+    let mut stmt = conn
         .prepare(
             "SELECT table_name, row_id, field, kind, other_device, other_seq FROM sync_conflict",
         )
@@ -521,8 +522,8 @@ pub fn observed(store: &fieldcage_core::Store) -> Expected {
     {
         conflicts.insert(c.unwrap());
     }
-    let mut stmt = store
-        .conn()
+    let conn = store.raw();
+    let mut stmt = conn
         .prepare("SELECT table_name, row_id FROM sync_hidden")
         .unwrap();
     for h in stmt
@@ -540,7 +541,7 @@ pub fn observed(store: &fieldcage_core::Store) -> Expected {
 
 /// Every change-log entry of a store, in the model's shape.
 pub fn logged(store: &fieldcage_core::Store) -> Vec<Entry> {
-    fieldcage_core::store::log::all_entries(store.conn())
+    fieldcage_core::store::log::all_entries(&store.raw())
         .unwrap()
         .into_iter()
         .map(|c| Entry {
@@ -559,8 +560,8 @@ pub fn logged(store: &fieldcage_core::Store) -> Vec<Entry> {
 
 /// The entries of the change-sets a store has applied, plus its own.
 fn expected_log(store: &fieldcage_core::Store, all: &[Entry]) -> Vec<Entry> {
-    let ranges: Vec<(String, i64)> = store
-        .conn()
+    let conn = store.raw();
+    let ranges: Vec<(String, i64)> = conn
         .prepare("SELECT device_id, max(last_seq) FROM sync_applied GROUP BY device_id")
         .unwrap()
         .query_map([], |r| Ok((r.get(0)?, r.get(1)?)))

@@ -2,6 +2,7 @@
 //! CSV bytes, the data package descriptor, and imports that must be refused
 //! without writing anything.
 
+use crate::util::Raw;
 use std::fs;
 use std::path::{Path, PathBuf};
 
@@ -206,7 +207,7 @@ fn counts(store: &Store) -> Vec<(String, i64)> {
         .iter()
         .map(|t| {
             let n = store
-                .conn()
+                .raw()
                 .query_row(&format!("SELECT count(*) FROM {}", t.name), [], |r| {
                     r.get(0)
                 })

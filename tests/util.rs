@@ -1,6 +1,9 @@
 //! Shared fixtures.
 
+use std::cell::RefCell;
+use std::collections::HashMap;
 use std::path::{Path, PathBuf};
+use std::rc::Rc;
 
 use fieldcage_core::Store;
 use rusqlite::types::Value;
@@ -8,6 +11,51 @@ use rusqlite::types::Value;
 pub use fieldcage_testkit::fixture::{
     Temp, demo_definition_with, demo_store, fast_temp, store_with,
 };
+
+/// The test's own connection to a store's database file: the store's own
+/// connection stays inside the core, so a test reads (and, to stage a fault,
+/// writes) through a connection of its own, as another program on the
+/// tablet would. One per file and thread, kept for the test's life, so that
+/// a TEMP table made through it is there for the test's later queries.
+pub trait Raw {
+    /// This store's file, through the test's connection.
+    fn raw(&self) -> Rc<rusqlite::Connection>;
+}
+
+impl Raw for Store {
+    fn raw(&self) -> Rc<rusqlite::Connection> {
+        type Open = HashMap<PathBuf, (FileId, Rc<rusqlite::Connection>)>;
+        thread_local! {
+            static OPEN: RefCell<Open> = RefCell::new(HashMap::new());
+        }
+        OPEN.with(|open| {
+            let mut open = open.borrow_mut();
+            // A file removed (its temp folder dropped) or made anew at the
+            // same path is no longer the one the connection holds: close it,
+            // so a long property test does not run out of file handles.
+            open.retain(|path, (id, _)| file_id(path) == Some(*id));
+            if let Some((_, conn)) = open.get(self.path()) {
+                return Rc::clone(conn);
+            }
+            let conn = rusqlite::Connection::open(self.path()).expect("the test's connection");
+            conn.busy_timeout(std::time::Duration::from_secs(10))
+                .expect("a busy timeout");
+            let conn = Rc::new(conn);
+            if let Some(id) = file_id(self.path()) {
+                open.insert(self.path().to_path_buf(), (id, Rc::clone(&conn)));
+            }
+            conn
+        })
+    }
+}
+
+/// A file's device and inode: which file a path names now.
+type FileId = (u64, u64);
+
+fn file_id(path: &Path) -> Option<FileId> {
+    use std::os::unix::fs::MetadataExt;
+    std::fs::metadata(path).ok().map(|m| (m.dev(), m.ino()))
+}
 
 /// The repository's top folder (the tests belong to `crates/cli`).
 pub fn repo_root() -> &'static Path {
@@ -18,7 +66,7 @@ pub fn repo_root() -> &'static Path {
 /// The first column of every row a query returns.
 pub fn column<T: rusqlite::types::FromSql>(store: &Store, sql: &str) -> Vec<T> {
     store
-        .conn()
+        .raw()
         .prepare(sql)
         .unwrap()
         .query_map([], |r| r.get(0))
@@ -32,7 +80,7 @@ pub fn column<T: rusqlite::types::FromSql>(store: &Store, sql: &str) -> Vec<T> {
 /// its own seq), in the stored columns, for tests to query with SQL. (STRICT,
 /// so that ANY keeps each value's type: 5.0 stays a real.)
 pub fn log_entries(store: &Store) {
-    let conn = store.conn();
+    let conn = store.raw();
     conn.execute_batch(
         "DROP TABLE IF EXISTS temp.log_entry; \
          CREATE TEMP TABLE log_entry (device_id TEXT, seq INTEGER, hlc INTEGER, table_name TEXT, \
@@ -42,7 +90,7 @@ pub fn log_entries(store: &Store) {
     let mut insert = conn
         .prepare("INSERT INTO temp.log_entry VALUES (?1, ?2, ?3, ?4, ?5, ?6, ?7, ?8, ?9)")
         .unwrap();
-    for c in fieldcage_core::store::log::all_entries(conn).unwrap() {
+    for c in fieldcage_core::store::log::all_entries(&conn).unwrap() {
         let e = c.entry;
         insert
             .execute(rusqlite::params![
@@ -71,7 +119,7 @@ pub fn table_names(store: &Store) -> Vec<String> {
 /// Every row of every table (tombstones, device and change log included), as
 /// text: two equal snapshots mean nothing at all changed.
 pub fn snapshot(store: &Store) -> String {
-    let conn = store.conn();
+    let conn = store.raw();
     let mut names = table_names(store);
     names.retain(|n| !n.starts_with("sqlite_"));
     let mut out = String::new();
@@ -98,7 +146,7 @@ pub fn snapshot(store: &Store) -> String {
 /// Count of live rows in a table.
 pub fn count(store: &Store, table: &str) -> i64 {
     store
-        .conn()
+        .raw()
         .query_row(
             &format!("SELECT count(*) FROM {table} WHERE deleted = 0"),
             [],
@@ -113,8 +161,8 @@ pub fn data_snapshot(store: &Store) -> String {
     let mut out = String::new();
     for schema in fieldcage_core::tables::all() {
         out.push_str(&format!("== {}\n", schema.name));
-        let mut stmt = store
-            .conn()
+        let conn = store.raw();
+        let mut stmt = conn
             .prepare(&format!("SELECT * FROM {} ORDER BY id", schema.name))
             .unwrap();
         let n = stmt.column_count();

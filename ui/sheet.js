@@ -55,6 +55,8 @@ function header() {
       stocked.length ? ` · ${stocked.join(', ')}` : '',
     ),
     sheet.due.length ? h('p', { class: 'due' }, `Due today: ${sheet.due.map((k) => fmt.kind[k]).join(', ')}`) : null,
+    // Planned on an earlier day, still within its grace days: to do today (as on the route).
+    sheet.late?.length ? h('p', { class: 'due late' }, `Still to do: ${sheet.late.map((p) => `${fmt.kind[p.kind]} day ${p.day}`).join(', ')}`) : null,
   );
 }
 

@@ -13,10 +13,10 @@
 
 use std::path::PathBuf;
 use std::sync::Arc;
-use std::time::Duration;
 
-use fieldcage_ops::auto_sync::{self, AutoSync};
+use fieldcage_ops::auto_sync::AutoSync;
 use fieldcage_ops::core::{Store, demo};
+use fieldcage_ops::launch::Launch;
 use fieldcage_ops::{Problem, ProblemCode, Service};
 use serde_json::Value;
 use tauri::{Manager, Runtime};
@@ -40,65 +40,24 @@ pub fn app<R: Runtime>(builder: tauri::Builder<R>) -> tauri::Builder<R> {
     builder.invoke_handler(tauri::generate_handler![call])
 }
 
-/// Command-line options of the tablet app.
-#[derive(Debug, Clone)]
+/// Command-line options of the tablet app: its database and the options it
+/// shares with `fieldcage serve` ([`Launch`]).
+#[derive(Debug, Clone, Default, PartialEq, clap::Parser)]
+#[command(name = "fieldcage-tablet", about = "The fieldcage tablet app", version)]
 pub struct Options {
     /// Database file (default: `fieldcage.db` in the app data folder).
+    #[arg(long)]
     pub db: Option<PathBuf>,
-    /// Build the demo season when the database holds no experiment.
-    pub demo: bool,
-    /// Fixed field day.
-    pub today: Option<chrono::NaiveDate>,
-    /// How often automatic sync looks at the sync folder (none = off).
-    pub sync_every: Option<Duration>,
-}
-
-impl Default for Options {
-    fn default() -> Self {
-        Options {
-            db: None,
-            demo: false,
-            today: None,
-            sync_every: Some(auto_sync::DEFAULT_EVERY),
-        }
-    }
+    /// The options `fieldcage serve` takes too.
+    #[command(flatten)]
+    pub launch: Launch,
 }
 
 impl Options {
-    /// Read `--db PATH`, `--demo`, `--today DATE` and `--sync-every SECS`
-    /// from the arguments.
-    pub fn parse(args: impl IntoIterator<Item = String>) -> Result<Options, String> {
-        let mut o = Options::default();
-        let mut args = args.into_iter();
-        while let Some(a) = args.next() {
-            match a.as_str() {
-                "--db" => o.db = Some(args.next().ok_or("--db needs a path")?.into()),
-                "--demo" => o.demo = true,
-                "--today" => {
-                    let d = args.next().ok_or("--today needs a date")?;
-                    o.today = Some(
-                        d.parse()
-                            .map_err(|_| format!("--today: {d:?} is not a date YYYY-MM-DD"))?,
-                    );
-                }
-                "--sync-every" => {
-                    let secs = args
-                        .next()
-                        .ok_or("--sync-every needs a number of seconds")?;
-                    o.sync_every = secs
-                        .parse()
-                        .map_err(|_| format!("--sync-every: {secs:?} is not a number of seconds"))
-                        .and_then(|s| auto_sync::interval(s).map_err(|e| e.to_string()))?;
-                }
-                other => {
-                    return Err(format!(
-                        "unknown option {other:?}; use --db PATH, --demo, --today YYYY-MM-DD, \
-                         --sync-every SECS"
-                    ));
-                }
-            }
-        }
-        Ok(o)
+    /// Read the options from `args` (without the program name).
+    pub fn parse_from_args(args: impl IntoIterator<Item = String>) -> Result<Options, clap::Error> {
+        use clap::Parser;
+        Options::try_parse_from(std::iter::once("fieldcage-tablet".to_owned()).chain(args))
     }
 }
 
@@ -107,16 +66,12 @@ pub fn open_service(
     db: &std::path::Path,
     options: &Options,
 ) -> fieldcage_ops::core::Result<Service> {
-    let store = if options.demo {
+    let store = if options.launch.demo {
         demo::open_or_build(db)?
     } else {
         Store::open(db)?
     };
-    let service = Service::new(store);
-    Ok(match options.today {
-        Some(day) => service.with_today(day),
-        None => service,
-    })
+    Ok(options.launch.service(store))
 }
 
 /// Put the operation set into the app's state and start automatic sync on
@@ -127,7 +82,7 @@ pub fn manage_service<R: Runtime, M: Manager<R>>(
     options: &Options,
 ) -> fieldcage_ops::core::Result<()> {
     let service = Arc::new(service);
-    if let Some(every) = options.sync_every {
+    if let Some(every) = options.launch.sync_every.0 {
         app.manage(AutoSync::start(Arc::clone(&service), every)?);
     }
     app.manage(service);
@@ -137,13 +92,9 @@ pub fn manage_service<R: Runtime, M: Manager<R>>(
 /// Start the app.
 #[cfg_attr(mobile, tauri::mobile_entry_point)]
 pub fn run() {
-    let options = match Options::parse(std::env::args().skip(1)) {
-        Ok(o) => o,
-        Err(e) => {
-            eprintln!("fieldcage-tablet: {e}");
-            std::process::exit(2);
-        }
-    };
+    // Prints help, version or a clear error naming the option, and exits
+    // (2 for a wrong option).
+    let options = <Options as clap::Parser>::parse();
     app(tauri::Builder::default())
         .setup(move |app| {
             let db = match &options.db {

@@ -52,7 +52,7 @@ fn demo_app_with(
         .iter()
         .chain(extra)
         .map(|a| (*a).to_owned());
-    let options = Options::parse(args).expect("options");
+    let options = Options::parse_from_args(args).expect("options");
     let service = open_service(&dir.path().join("tablet.db"), &options).expect("demo database");
     let app = app(mock_builder())
         .build(mock_context(noop_assets()))
@@ -100,30 +100,33 @@ fn errors_have_the_same_shape_as_over_http() {
 
 #[test]
 fn options_are_checked() {
-    assert!(
-        Options::parse(["--today".to_owned(), "soon".to_owned()])
+    let refused = |args: &[&str]| {
+        Options::parse_from_args(args.iter().map(|a| (*a).to_owned()))
             .unwrap_err()
-            .contains("\"soon\"")
-    );
-    assert!(
-        Options::parse(["--colour".to_owned()])
-            .unwrap_err()
-            .contains("--colour")
-    );
-    let o =
-        Options::parse(["--db".to_owned(), "x.db".to_owned(), "--demo".to_owned()]).expect("ok");
+            .to_string()
+    };
+    // A wrong value or an unknown option is named in the error.
+    assert!(refused(&["--today", "soon"]).contains("'soon'"));
+    assert!(refused(&["--colour"]).contains("--colour"));
+    let o = Options::parse_from_args(["--db".to_owned(), "x.db".to_owned(), "--demo".to_owned()])
+        .expect("ok");
     assert_eq!(
-        (o.db.as_deref(), o.demo),
+        (o.db.as_deref(), o.launch.demo),
         (Some(std::path::Path::new("x.db")), true)
     );
     // Automatic sync: every 5 s unless told (common practice of our own).
-    assert_eq!(o.sync_every, Some(Duration::from_secs(5)));
-    let off = Options::parse(["--sync-every".to_owned(), "0".to_owned()]).expect("ok");
-    assert_eq!(off.sync_every, None);
+    assert_eq!(o.launch.sync_every.0, Some(Duration::from_secs(5)));
+    let off = Options::parse_from_args(["--sync-every".to_owned(), "0".to_owned()]).expect("ok");
+    assert_eq!(off.launch.sync_every.0, None);
+    let negative = refused(&["--sync-every", "-2"]);
     assert!(
-        Options::parse(["--sync-every".to_owned(), "-2".to_owned()])
-            .unwrap_err()
-            .contains("sync-every")
+        negative.contains("sync-every") && negative.contains("0 or more"),
+        "{negative}"
+    );
+    // The same type is what `fieldcage serve` takes: its defaults are these.
+    assert_eq!(
+        Options::parse_from_args([]).expect("ok"),
+        Options::default()
     );
 }
 

@@ -276,7 +276,7 @@ pub fn stages(size: SeasonSize, dir: &Path) -> Result<Vec<Timing>> {
         "day's-end checks, read and rules only (no writes)",
         format!("{} cover rows and every visit", size.cover_rows()),
         &mut || {
-            raised = fieldcage_core::checks::check(store.conn(), &Scope::Season, today)?.len();
+            raised = fieldcage_core::checks::check(&store, &Scope::Season, today)?.len();
             Ok(())
         },
     )?;
@@ -512,7 +512,7 @@ pub fn run_stage(stage: Stage, db: &Path, out: &Path, today: chrono::NaiveDate) 
     let t = Instant::now();
     match stage {
         Stage::Checks => {
-            fieldcage_core::checks::check(store.conn(), &Scope::Season, today)?;
+            fieldcage_core::checks::check(&store, &Scope::Season, today)?;
         }
         Stage::Analysis => {
             fieldcage_core::analysis::analyse(
@@ -521,9 +521,7 @@ pub fn run_stage(stage: Stage, db: &Path, out: &Path, today: chrono::NaiveDate) 
             )?;
         }
         Stage::Export => {
-            let snapshot = store.conn().unchecked_transaction()?;
-            fieldcage_core::export::write_data_tables(&store, out)?;
-            drop(snapshot);
+            store.read_snapshot(|s| fieldcage_core::export::write_data_tables(s, out))?;
         }
         Stage::RawDump => raw_dump(&store, out)?,
     }
@@ -532,10 +530,16 @@ pub fn run_stage(stage: Stage, db: &Path, out: &Path, today: chrono::NaiveDate) 
 
 /// The rows the export writes, straight from SQLite to CSV files (values as
 /// SQLite gives them, no schema checks, no cell formatting), each file
-/// flushed to disk like the export's.
+/// flushed to disk like the export's. It reads through a read-only
+/// connection of its own to the store's file (the store's connection stays
+/// inside the core).
 fn raw_dump(store: &Store, out: &Path) -> Result<()> {
     mkdir(out)?;
-    let snapshot = store.conn().unchecked_transaction()?;
+    let conn = rusqlite::Connection::open_with_flags(
+        store.path(),
+        rusqlite::OpenFlags::SQLITE_OPEN_READ_ONLY | rusqlite::OpenFlags::SQLITE_OPEN_NO_MUTEX,
+    )?;
+    let snapshot = conn.unchecked_transaction()?;
     for schema in fieldcage_core::tables::all() {
         let path = out.join(format!("{}.csv", schema.name));
         let file = File::create(&path).map_err(|e| Error::io(&path, e))?;

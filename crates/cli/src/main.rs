@@ -64,24 +64,16 @@ enum Command {
         /// The database file (with --demo: the demo season is built into it if it holds no experiment).
         #[arg(long)]
         db: PathBuf,
-        /// Build the invented demo season first when the database does not exist.
-        #[arg(long)]
-        demo: bool,
         /// Port to listen on.
         #[arg(long, default_value_t = 8088)]
         port: u16,
-        /// Open the route on this field day instead of today (YYYY-MM-DD).
-        #[arg(long)]
-        today: Option<chrono::NaiveDate>,
         /// Listen on every network interface, protected by a random token
         /// (only on a network you trust).
         #[arg(long)]
         lan: bool,
-        /// Seconds between looks at the sync target (set in the settings
-        /// screen or with `device --target`); sync runs on its own when the
-        /// target is reachable and something is new. 0 turns it off.
-        #[arg(long, value_name = "SECS", default_value_t = 5.0)]
-        sync_every: f64,
+        /// The options the tablet app takes too.
+        #[command(flatten)]
+        launch: fieldcage_ops::launch::Launch,
     },
     /// Day's-end checks: raise, store and list the flags (exit 1 while an
     /// error is open); or confirm a flag with a note.
@@ -277,21 +269,16 @@ fn run(cli: Cli) -> anyhow::Result<ExitCode> {
         }
         Command::Serve {
             db,
-            demo,
             port,
-            today,
             lan,
-            sync_every,
+            launch,
         } => {
-            let store = if demo {
+            let store = if launch.demo {
                 demo::open_or_build(&db).with_context(|| format!("opening {}", db.display()))?
             } else {
                 existing_database(&db)?
             };
-            let mut service = fieldcage_ops::Service::new(store);
-            if let Some(day) = today {
-                service = service.with_today(day);
-            }
+            let service = launch.service(store);
             let (ip, guard) = if lan {
                 (
                     std::net::IpAddr::from([0, 0, 0, 0]),
@@ -317,7 +304,7 @@ fn run(cli: Cli) -> anyhow::Result<ExitCode> {
             }
             let service = std::sync::Arc::new(service);
             // Kept alive while serving; dropping it stops automatic sync.
-            let _auto_sync = match auto_sync::interval(sync_every)? {
+            let _auto_sync = match launch.sync_every.0 {
                 Some(every) => Some(auto_sync::AutoSync::start(
                     std::sync::Arc::clone(&service),
                     every,
@@ -447,7 +434,7 @@ fn run(cli: Cli) -> anyhow::Result<ExitCode> {
                 );
                 return Ok(ExitCode::SUCCESS);
             }
-            let today = checks::today(store.conn())?;
+            let today = checks::today(&store)?;
             let scope = match (day, all, cage) {
                 (Some(day), _, _) => checks::Scope::Day(day),
                 (_, true, _) => checks::Scope::Season,

@@ -18,6 +18,7 @@ use rand_chacha::ChaCha8Rng;
 
 use crate::model::*;
 use crate::record::{self, CoverEntry, CoverTarget, DamageEntry, NewVisit};
+use crate::season::Frame;
 use crate::setup::{self, Definition};
 use crate::store::{Store, Writer};
 use crate::{Error, Result, checks};
@@ -146,49 +147,26 @@ enum Plant {
 }
 
 impl Season {
+    /// The demo's view of the season just set up: the shared [`Frame`]
+    /// with the taxa by code.
     fn load(store: &Store, def: &Definition) -> Result<Season> {
-        let offset: FixedOffset = def.experiment.utc_offset.parse().map_err(|_| {
-            Error::invalid(
-                "experiment",
-                "utc_offset",
-                &def.experiment.utc_offset,
-                "is not an offset",
-            )
-        })?;
-        let treatments: HashMap<TreatmentId, Treatment> = store
-            .list::<Treatment>()?
-            .into_iter()
-            .map(|t| (t.id, t))
-            .collect();
-        let blocks: HashMap<BlockId, String> = store
-            .list::<Block>()?
-            .into_iter()
-            .map(|b| (b.id, b.code))
-            .collect();
-        let assignment: HashMap<EnclosureId, TreatmentId> = store
-            .list::<Assignment>()?
-            .into_iter()
-            .map(|a| (a.enclosure_id, a.treatment_id))
-            .collect();
-        let mut cages: Vec<Cage> = store
-            .list::<Enclosure>()?
-            .into_iter()
-            .map(|e| {
-                let t = &treatments[&assignment[&e.id]];
-                Cage {
-                    id: e.id,
-                    block: blocks[&e.block_id].clone(),
-                    label: e.label,
-                    index: 0,
-                    treatment: t.code.clone(),
-                    herbivores: t.herbivores,
-                    mode: t.predator_mode,
-                }
-            })
-            .collect();
-        cages.sort_by(|a, b| a.label.cmp(&b.label));
-        for (i, c) in cages.iter_mut().enumerate() {
-            c.index = i;
+        let frame = Frame::load(store)?;
+        let mut cages = Vec::with_capacity(frame.cages.len());
+        // The frame's cages are ordered by label: `index` is the place on
+        // the crew's round.
+        for (index, c) in frame.cages.iter().enumerate() {
+            let t = c.treatment.as_ref().ok_or_else(|| {
+                Error::Invariant(format!("demo cage {} has no treatment", c.label))
+            })?;
+            cages.push(Cage {
+                id: c.id,
+                label: c.label.clone(),
+                block: c.block.clone(),
+                index,
+                treatment: t.code.clone(),
+                herbivores: t.herbivores,
+                mode: t.predator_mode,
+            });
         }
         let taxa: HashMap<String, TaxonId> = store
             .list::<Taxon>()?
@@ -197,22 +175,27 @@ impl Season {
             .collect();
         let taxon_code: HashMap<TaxonId, String> =
             taxa.iter().map(|(c, id)| (*id, c.clone())).collect();
-        let plans = store
-            .list::<StockingPlan>()?
-            .into_iter()
-            .map(|p| {
-                (
-                    (
-                        treatments[&p.treatment_id].code.clone(),
-                        taxon_code[&p.taxon_id].clone(),
-                    ),
-                    p,
-                )
+        let treatment_code: HashMap<TreatmentId, String> = frame
+            .cages
+            .iter()
+            .filter_map(|c| c.treatment.as_ref())
+            .map(|t| (t.id, t.code.clone()))
+            .collect();
+        // Plans of a treatment no cage has are never asked for.
+        let plans = frame
+            .plans
+            .into_values()
+            .filter_map(|p| {
+                let key = (
+                    treatment_code.get(&p.treatment_id)?.clone(),
+                    taxon_code.get(&p.taxon_id)?.clone(),
+                );
+                Some((key, p))
             })
             .collect();
         Ok(Season {
-            start: def.start_date(),
-            offset,
+            start: frame.calendar.start,
+            offset: frame.calendar.offset,
             cages,
             taxa,
             plans,

@@ -53,9 +53,16 @@ pub enum Error {
         /// What is wrong, with the value.
         reason: String,
     },
-    /// The database is not in the state this operation needs.
+    /// The database is not in the state this operation needs, and the
+    /// person can change that (delete the rows that refer to it first, open
+    /// it with a newer fieldcage, use a new file); the message says how.
     #[error("{0}")]
     State(String),
+    /// Something that always holds did not: a bug in fieldcage or a damaged
+    /// database, nothing the person did or can fix by trying again. What
+    /// was being written was rolled back; the message is for a bug report.
+    #[error("{0}")]
+    Invariant(String),
     /// A SQLite setting did not take effect; durability cannot be promised.
     #[error("PRAGMA {name} is {actual:?}, expected {expected:?}")]
     Pragma {

@@ -90,7 +90,7 @@ pub fn export_with(store: &Store, out: &Path, disk: &dyn Disk) -> Result<ExportS
     let descriptor = data_package(store)?;
     drop(snapshot);
     let mut text = serde_json::to_string_pretty(&descriptor)
-        .map_err(|e| Error::State(format!("{DESCRIPTOR}: cannot serialise: {e}")))?;
+        .map_err(|e| Error::Invariant(format!("{DESCRIPTOR}: cannot serialise: {e}")))?;
     text.push('\n');
     write_file(disk, out, DESCRIPTOR, text.as_bytes())?;
     disk::sync_dir(disk, out)?;
@@ -123,7 +123,8 @@ fn table_csv(schema: &TableSchema, rows: &[Vec<rusqlite::types::Value>]) -> Resu
         .quote_style(csv::QuoteStyle::Necessary)
         .terminator(csv::Terminator::Any(b'\n'))
         .from_writer(Vec::new());
-    let failed = |e: csv::Error| Error::State(format!("{}: cannot write CSV: {e}", schema.name));
+    let failed =
+        |e: csv::Error| Error::Invariant(format!("{}: cannot write CSV: {e}", schema.name));
     csv.write_record(schema.fields.iter().map(|f| f.name.as_str()))
         .map_err(failed)?;
     for row in rows {
@@ -131,7 +132,7 @@ fn table_csv(schema: &TableSchema, rows: &[Vec<rusqlite::types::Value>]) -> Resu
             .map_err(failed)?;
     }
     csv.into_inner()
-        .map_err(|e| Error::State(format!("{}: cannot write CSV: {e}", schema.name)))
+        .map_err(|e| Error::Invariant(format!("{}: cannot write CSV: {e}", schema.name)))
 }
 
 /// The `datapackage.json` descriptor.

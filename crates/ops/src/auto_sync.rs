@@ -226,7 +226,7 @@ impl AutoSync {
                     }
                 }
             })
-            .map_err(|e| Error::State(format!("cannot start automatic sync: {e}")))?;
+            .map_err(|e| Error::Invariant(format!("cannot start automatic sync: {e}")))?;
         Ok(AutoSync {
             stop: Some(stop),
             thread: Some(thread),

@@ -21,7 +21,7 @@ impl Service {
             .ok_or_else(|| Error::invalid("request", "table", &req.table, "is not a table"))?;
         let store = self.store();
         let mut entries =
-            fieldcage_core::store::log::row_entries(store.conn(), &req.table, &req.id.to_string())?;
+            fieldcage_core::store::log::row_entries(&*store, &req.table, &req.id.to_string())?;
         entries.sort_by(|a, b| (a.hlc, &a.device_id, a.seq).cmp(&(b.hlc, &b.device_id, b.seq)));
         Ok(entries
             .into_iter()

@@ -19,6 +19,8 @@
 pub mod auto_sync;
 pub mod entry;
 pub mod history;
+#[cfg(feature = "args")]
+pub mod launch;
 mod problem;
 pub mod results;
 pub mod review;
@@ -177,7 +179,7 @@ impl Service {
         f: impl FnOnce(&mut Writer<'_>, &Frame) -> Result<T>,
     ) -> Result<T> {
         self.store().write(|w| {
-            let frame = Frame::load(w.conn())?;
+            let frame = Frame::load(w)?;
             f(w, &frame)
         })
     }

@@ -132,6 +132,13 @@ impl From<Error> for Problem {
                 field: None,
                 value: None,
             },
+            // A bug or a damaged database: not the person's conflict.
+            Error::Invariant(_) => Problem {
+                code: ProblemCode::Internal,
+                message,
+                field: None,
+                value: None,
+            },
             Error::Import { file, column, .. } => Problem {
                 code: ProblemCode::InvalidValue,
                 message,

@@ -14,7 +14,7 @@ impl Service {
     /// the flags and return them with their status.
     pub fn review(&self, req: ReviewRequest) -> Result<fieldcage_core::checks::Report> {
         let mut store = self.store();
-        let frame = Frame::load(store.conn())?;
+        let frame = Frame::load(&*store)?;
         let date = self.field_date(&frame.calendar, req.date);
         let scope = if req.season {
             fieldcage_core::checks::Scope::Season

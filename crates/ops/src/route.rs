@@ -11,13 +11,13 @@ use fieldcage_core::model::*;
 
 use crate::*;
 use fieldcage_core::season::Frame;
-use fieldcage_core::season::schedule::{self, AsOf, PlanState};
+use fieldcage_core::season::schedule::{self, AsOf, PlanState, PlanStatus};
 
 impl Service {
     /// The experiment, the field day and what the device knows.
     pub fn overview(&self, req: DayRequest) -> Result<Overview> {
         let store = self.store();
-        let frame = Frame::load(store.conn())?;
+        let frame = Frame::load(&*store)?;
         let date = self.field_date(&frame.calendar, req.date);
         let pending: i64 = store.change_count()?;
         Ok(Overview {
@@ -41,7 +41,7 @@ impl Service {
     /// start of the field day, the checks at the end of theirs.
     pub fn route(&self, req: DayRequest) -> Result<Route> {
         let store = self.store();
-        let frame = Frame::load(store.conn())?;
+        let frame = Frame::load(&*store)?;
         let calendar = &frame.calendar;
         let date = self.field_date(calendar, req.date);
         let day = calendar.day_of(date);
@@ -52,30 +52,14 @@ impl Service {
         for visits in by_cage.values_mut() {
             visits.sort_by_key(|v| (v.visited_at, v.id));
         }
-        let open_flags: HashMap<EnclosureId, i64> = store
-            .conn()
-            .prepare(
-                "SELECT enclosure_id, count(*) FROM flag WHERE status = 'open' AND deleted = 0 \
-                 GROUP BY enclosure_id",
-            )?
-            .query_map([], |r| Ok((r.get(0)?, r.get(1)?)))?
-            .collect::<rusqlite::Result<_>>()?;
+        let open_flags = fieldcage_core::checks::open_by_cage(&*store)?;
         let due = schedule::planned_on(&frame.schedule, day);
         let mut blocks: BTreeMap<String, Vec<RouteCage>> = BTreeMap::new();
         for (cage, treatment) in frame.assigned_cages() {
             let visits = by_cage.get(&cage.id).map(Vec::as_slice).unwrap_or_default();
             let plan = schedule::status(calendar, &frame.schedule, visits, day, AsOf::StartOf);
-            let planned = |wanted: fn(&PlanState) -> bool| -> Vec<Planned> {
-                plan.iter()
-                    .filter(|p| wanted(&p.state))
-                    .map(|p| Planned {
-                        kind: p.entry.kind,
-                        day: p.entry.day,
-                    })
-                    .collect()
-            };
-            let overdue = planned(|s| *s == PlanState::Missed);
-            let late = planned(|s| *s == PlanState::Late);
+            let overdue = Planned::those(&plan, PlanState::Missed);
+            let late = Planned::those(&plan, PlanState::Late);
             let today: Vec<&PlanState> = plan
                 .iter()
                 .filter(|p| p.entry.day == day)
@@ -172,6 +156,20 @@ pub struct Planned {
     pub kind: VisitKind,
     /// Day.
     pub day: i64,
+}
+
+impl Planned {
+    /// The planned visits of `plan` in `state` (late, missed), in schedule
+    /// order: what the route and the sheet list.
+    pub(crate) fn those(plan: &[PlanStatus<'_>], state: PlanState) -> Vec<Planned> {
+        plan.iter()
+            .filter(|p| p.state == state)
+            .map(|p| Planned {
+                kind: p.entry.kind,
+                day: p.entry.day,
+            })
+            .collect()
+    }
 }
 
 /// State of a cage on the route.

@@ -8,6 +8,7 @@ use serde::{Deserialize, Serialize};
 use fieldcage_core::Result;
 use fieldcage_core::model::*;
 
+use fieldcage_core::season::schedule::{AsOf, PlanState};
 use fieldcage_core::season::{Frame, schedule, stocking};
 use fieldcage_core::store::Store;
 
@@ -17,15 +18,16 @@ impl Service {
     /// Everything the cage sheet shows for one cage on one day.
     pub fn sheet(&self, req: CageRequest) -> Result<Sheet> {
         let store = self.store();
-        let frame = Frame::load(store.conn())?;
+        let frame = Frame::load(&*store)?;
         let calendar = &frame.calendar;
         let date = self.field_date(calendar, req.date);
         let (cage, treatment) = frame.assigned_cage(req.enclosure_id)?;
-        let visits: Vec<Visit> = store
+        let mut visits: Vec<Visit> = store
             .list::<Visit>()?
             .into_iter()
             .filter(|v| v.enclosure_id == cage.id)
             .collect();
+        visits.sort_by_key(|v| (v.visited_at, v.id));
         let today: Vec<Visit> = visits
             .iter()
             .filter(|v| v.visited_at.date_naive() == date)
@@ -156,6 +158,8 @@ impl Service {
             .filter(|e| today_ids.contains(&e.visit_id))
             .collect();
         let day = calendar.day_of(date);
+        // The route's rule: judged at the start of the field day.
+        let plan = schedule::status(calendar, &frame.schedule, &visits, day, AsOf::StartOf);
         let (cover, damage) = protocols(&store)?;
         Ok(Sheet {
             enclosure_id: cage.id,
@@ -166,6 +170,7 @@ impl Service {
             day,
             days_since_stocking: first_stocking.map(|d| (date - d).num_days()),
             due: schedule::planned_on(&frame.schedule, day),
+            late: Planned::those(&plan, PlanState::Late),
             visits: today,
             animals,
             plants,
@@ -332,6 +337,9 @@ pub struct Sheet {
     pub days_since_stocking: Option<i64>,
     /// Kinds due today by the schedule.
     pub due: Vec<VisitKind>,
+    /// Planned visits of earlier days not made yet but still within their
+    /// grace days: to do today, as the route lists them.
+    pub late: Vec<Planned>,
     /// Today's visits.
     pub visits: Vec<Visit>,
     /// Animals: stocking summary and census.

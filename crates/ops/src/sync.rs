@@ -5,16 +5,15 @@
 use std::path::{Path, PathBuf};
 
 use chrono::DateTime;
-use rusqlite::OptionalExtension;
 use serde::{Deserialize, Serialize};
 use serde_json::Value as Json;
 
 use crate::{Service, auto_sync, json_value};
-use fieldcage_core::store::{Hlc, Op, Store};
+use fieldcage_core::store::{Hlc, Op};
 use fieldcage_core::sync::{
     self, AnomalyKind, ConflictChoice, ConflictKind, SkipKind, TargetStatus,
 };
-use fieldcage_core::{Error, Result, tables};
+use fieldcage_core::{Error, Result};
 
 // ----- requests -----
 
@@ -371,7 +370,7 @@ impl Service {
                     _ => None,
                 };
                 Ok(ConflictLine {
-                    record: describe_record(&store, &c.table, &c.row_id),
+                    record: fieldcage_core::sync::describe_record(&*store, &c.table, &c.row_id),
                     kind: c.kind.as_str(),
                     current: version_line(&c.current, c.kind),
                     other: version_line(&c.other, c.kind),
@@ -465,80 +464,4 @@ fn version_line(v: &sync::Version, kind: ConflictKind) -> VersionLine {
         },
         row_id: v.row_id.clone(),
     }
-}
-
-/// A record in people's words: its cage, its visit (kind and date), its
-/// taxon, its tag. Falls back to the table and id.
-fn describe_record(store: &Store, table: &str, row_id: &str) -> String {
-    let fallback = format!("{} {row_id}", table.replace('_', " "));
-    let Some(schema) = tables::get(table) else {
-        return fallback;
-    };
-    let has = |f: &str| schema.fields.iter().any(|x| x.name == f);
-    let conn = store.conn();
-    let one = |sql: &str| -> Option<String> {
-        conn.query_row(sql, [row_id], |r| r.get::<_, Option<String>>(0))
-            .optional()
-            .ok()
-            .flatten()
-            .flatten()
-    };
-    let mut parts: Vec<String> = vec![table.replace('_', " ")];
-    let visit = if table == "visit" {
-        Some("?1".to_owned())
-    } else if has("visit_id") {
-        Some(format!("(SELECT visit_id FROM {table} WHERE id = ?1)"))
-    } else {
-        None
-    };
-    if let Some(visit) = visit {
-        // The visit's kind is said once: by the table name, or for a visit here.
-        let kind = if table == "visit" {
-            "v.kind || ' ' || "
-        } else {
-            ""
-        };
-        if let Some(cage) = one(&format!(
-            "SELECT e.label || ' · ' || {kind}substr(v.visited_at, 1, 10) \
-             FROM visit v JOIN enclosure e ON e.id = v.enclosure_id WHERE v.id = {visit}"
-        )) {
-            parts.push(format!("cage {cage}"));
-        }
-    } else if has("enclosure_id")
-        && let Some(cage) = one(&format!(
-            "SELECT e.label FROM {table} t JOIN enclosure e ON e.id = t.enclosure_id WHERE t.id = ?1"
-        ))
-    {
-        parts.push(format!("cage {cage}"));
-    }
-    if has("taxon_id")
-        && let Some(code) = one(&format!(
-            "SELECT x.code FROM {table} t JOIN taxon x ON x.id = t.taxon_id WHERE t.id = ?1"
-        ))
-    {
-        parts.push(code);
-    }
-    if has("leaf_id")
-        && let Some(tag) = one(&format!(
-            "SELECT l.tag_label FROM {table} t JOIN tagged_leaf l ON l.id = t.leaf_id WHERE t.id = ?1"
-        ))
-    {
-        parts.push(format!("leaf {tag}"));
-    } else if table == "tagged_leaf"
-        && let Some(tag) = one("SELECT tag_label FROM tagged_leaf WHERE id = ?1")
-    {
-        parts.push(format!("leaf {tag}"));
-    } else if (table == "enclosure" || has("label"))
-        && let Some(label) = one(&format!("SELECT label FROM {table} WHERE id = ?1"))
-    {
-        parts.push(label);
-    } else if has("code")
-        && let Some(code) = one(&format!("SELECT code FROM {table} WHERE id = ?1"))
-    {
-        parts.push(code);
-    }
-    if parts.len() == 1 {
-        return fallback;
-    }
-    parts.join(" · ")
 }

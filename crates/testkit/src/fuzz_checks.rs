@@ -130,12 +130,9 @@ fn fresh_store(db: &Path) -> Store {
 
 /// Rows in every data table, and entries in the change log.
 fn stored_rows(store: &Store) -> (i64, i64) {
-    let count = |table: &str| -> i64 {
-        store
-            .conn()
-            .query_row(&format!("SELECT count(*) FROM {table}"), [], |r| r.get(0))
-            .expect("a count")
-    };
-    let data = tables::all().iter().map(|t| count(&t.name)).sum();
+    let data = tables::all()
+        .iter()
+        .map(|t| store.row_count(t).expect("a count"))
+        .sum();
     (data, store.change_count().expect("a count"))
 }

@@ -3,8 +3,9 @@
 //!
 //! Two rules settle what counts as one observation (both are stated in the
 //! report):
-//! - A visit's day is its scheduled `day`; an unscheduled visit gets the
-//!   number of days from the experiment's start date to its local date.
+//! - A visit's day is the day it counts for
+//!   ([`crate::season::Calendar::counts_for`]): its planned `day`, or for an
+//!   unplanned visit the day of the experiment of its local date.
 //! - When a cage has more than one census, cover or damage visit on the same
 //!   day, the one started last (then the larger id) is used and the others
 //!   are listed in the data-handling notes. Stocking events count wherever
@@ -12,10 +13,9 @@
 
 use std::collections::{BTreeMap, HashMap};
 
-use chrono::NaiveDate;
-
 use crate::Result;
 use crate::model::*;
+use crate::season::Frame;
 use crate::store::Store;
 
 /// A cage with the labels the analyst reads.
@@ -66,18 +66,22 @@ pub(crate) struct Season {
 }
 
 impl Season {
-    /// Read the season from the store.
+    /// Read the season from the store: the experiment, its calendar and its
+    /// cages from the one [`Frame`] every reader shares.
     pub fn load(store: &Store) -> Result<Season> {
         let mut s = Season::default();
-        let mut experiments = store.list::<Experiment>()?;
-        if experiments.len() > 1 {
+        let Some(frame) = Frame::load_if_any(store)? else {
+            s.notes
+                .push("the database holds no experiment yet: there is nothing to analyse".into());
+            return Ok(s);
+        };
+        let experiments = store.list::<Experiment>()?.len();
+        if experiments > 1 {
             s.notes.push(format!(
-                "the database holds {} experiments; days count from the first one's start date",
-                experiments.len()
+                "the database holds {experiments} experiments; days count from the first one's start date"
             ));
         }
-        s.experiment = (!experiments.is_empty()).then(|| experiments.remove(0));
-        let start: Option<NaiveDate> = s.experiment.as_ref().map(|e| e.start_date);
+        let calendar = frame.calendar;
 
         let mut treatments = store.list::<Treatment>()?;
         treatments.sort_by(|a, b| a.code.cmp(&b.code));
@@ -87,29 +91,19 @@ impl Season {
             .map(|(i, t)| (t.id, i))
             .collect();
         s.treatments = treatments;
-        let blocks: HashMap<BlockId, String> = store
-            .list::<Block>()?
+        // The frame's cages are ordered by label.
+        let cages: Vec<Cage> = frame
+            .cages
             .into_iter()
-            .map(|b| (b.id, b.code))
-            .collect();
-        let assignment: HashMap<EnclosureId, TreatmentId> = store
-            .list::<Assignment>()?
-            .into_iter()
-            .map(|a| (a.enclosure_id, a.treatment_id))
-            .collect();
-        let mut cages: Vec<Cage> = store
-            .list::<Enclosure>()?
-            .into_iter()
-            .map(|e| Cage {
-                id: e.id,
-                block: blocks.get(&e.block_id).cloned().unwrap_or_default(),
-                treatment: assignment
-                    .get(&e.id)
-                    .and_then(|t| treatment_index.get(t).copied()),
-                label: e.label,
+            .map(|c| Cage {
+                treatment: c
+                    .treatment
+                    .and_then(|t| treatment_index.get(&t.id).copied()),
+                id: c.id,
+                label: c.label,
+                block: c.block,
             })
             .collect();
-        cages.sort_by(|a, b| a.label.cmp(&b.label));
         for c in cages.iter().filter(|c| c.treatment.is_none()) {
             s.notes.push(format!(
                 "cage {} has no treatment assignment; it is left out of treatment summaries and effects",
@@ -119,6 +113,7 @@ impl Season {
         let cage_index: HashMap<EnclosureId, usize> =
             cages.iter().enumerate().map(|(i, c)| (c.id, i)).collect();
         s.cages = cages;
+        s.experiment = Some(frame.experiment);
 
         s.taxa = store
             .list::<Taxon>()?
@@ -151,20 +146,12 @@ impl Season {
         // Visits: the day of each, then one per cage, kind and day.
         let mut chosen: BTreeMap<(usize, i64, VisitKind), Visit> = BTreeMap::new();
         let mut set_aside: Vec<(usize, i64, VisitKind)> = Vec::new();
-        let mut undated = 0usize;
         let mut starts: HashMap<VisitId, chrono::DateTime<chrono::FixedOffset>> = HashMap::new();
         for v in store.list::<Visit>()? {
             let Some(&cage) = cage_index.get(&v.enclosure_id) else {
                 continue;
             };
-            let day = match (v.day, start) {
-                (Some(d), _) => d,
-                (None, Some(start)) => (v.visited_at.date_naive() - start).num_days(),
-                (None, None) => {
-                    undated += 1;
-                    continue;
-                }
-            };
+            let day = calendar.counts_for(&v);
             s.visit_day.insert(v.id, (cage, day));
             starts.insert(v.id, v.visited_at);
             if v.kind == VisitKind::Stocking {
@@ -183,11 +170,6 @@ impl Season {
                     chosen.insert(key, v);
                 }
             }
-        }
-        if undated > 0 {
-            s.notes.push(format!(
-                "{undated} unscheduled visits were left out: without an experiment start date they have no day"
-            ));
         }
         for (cage, day, kind) in set_aside {
             s.notes.push(format!(

@@ -31,7 +31,7 @@ pub fn rows<T: Serialize>(schema: &TableSchema, items: &[T]) -> Result<Vec<Vec<V
 }
 
 fn row<T: Serialize>(schema: &TableSchema, item: &T) -> Result<Vec<Value>> {
-    let failed = |what: String| Error::State(format!("analysis table {}: {what}", schema.name));
+    let failed = |what: String| Error::Invariant(format!("analysis table {}: {what}", schema.name));
     let Json::Object(mut map) =
         serde_json::to_value(item).map_err(|e| failed(format!("cannot serialise a row: {e}")))?
     else {
@@ -96,7 +96,7 @@ fn table(r: &Results, schema: &TableSchema) -> Result<Vec<Vec<Value>>> {
         "treatment_summary" => rows(schema, &r.treatment_summary),
         "effect" => rows(schema, &r.effect),
         "predator_split" => rows(schema, &r.predator_split),
-        other => Err(Error::State(format!(
+        other => Err(Error::Invariant(format!(
             "analysis table {other} has no rows in the results"
         ))),
     }

@@ -37,7 +37,9 @@ use uuid::Uuid;
 
 pub use crate::model::CoverRow;
 pub use season::{Cage, Season};
-pub use stored::{Changes, MIN_ID_SUFFIX, Report, ReportedFlag, confirm, format_report, run};
+pub use stored::{
+    Changes, MIN_ID_SUFFIX, Report, ReportedFlag, confirm, format_report, open_by_cage, run,
+};
 
 use crate::Result;
 use crate::model::*;
@@ -246,16 +248,20 @@ pub fn raise(season: &Season) -> Vec<Flag> {
 }
 
 /// The flags of a scope, as of the end of `today`, without storing anything.
-pub fn check(conn: &rusqlite::Connection, scope: &Scope, today: NaiveDate) -> Result<Vec<Flag>> {
-    let season = Season::load(conn, today, Limits::DEFAULT)?;
+pub fn check(
+    source: &impl crate::store::Source,
+    scope: &Scope,
+    today: NaiveDate,
+) -> Result<Vec<Flag>> {
+    let season = Season::load(crate::store::conn_of(source), today, Limits::DEFAULT)?;
     let mut flags = raise(&season);
     flags.retain(|f| scope.contains(season.calendar.start, f.day, &f.cage));
     Ok(flags)
 }
 
 /// Today's local date in the experiment's UTC offset.
-pub fn today(conn: &rusqlite::Connection) -> Result<NaiveDate> {
-    let experiment = crate::season::experiment(conn)?;
+pub fn today(source: &impl crate::store::Source) -> Result<NaiveDate> {
+    let experiment = crate::season::experiment(source)?;
     Ok(crate::season::Calendar::of(&experiment)?.today())
 }
 

@@ -67,7 +67,7 @@ pub struct Season {
 
 impl Season {
     /// Read the season from a connection (a plain read, or inside a write
-    /// transaction through [`crate::store::Writer::conn`]).
+    /// transaction, the transaction's connection).
     pub fn load(conn: &Connection, today: NaiveDate, limits: Limits) -> Result<Season> {
         let experiment = store::list::<Experiment>(conn)?
             .into_iter()

@@ -166,7 +166,7 @@ fn reconcile(
     for flag in raised {
         let key = flag.key();
         if !seen.insert(key.clone()) {
-            return Err(Error::State(format!(
+            return Err(Error::Invariant(format!(
                 "check rule {} raised two flags for record {}; this is a bug in the rule",
                 flag.rule_id, flag.record.id
             )));
@@ -282,6 +282,17 @@ fn as_reported(f: StoredFlag, cage: String, start: NaiveDate) -> ReportedFlag {
 
 /// Shortest end of a flag id accepted in place of the whole id.
 pub const MIN_ID_SUFFIX: usize = 6;
+
+/// The number of open flags of each cage that has any.
+pub fn open_by_cage(source: &impl store::Source) -> Result<HashMap<EnclosureId, i64>> {
+    Ok(store::conn_of(source)
+        .prepare(
+            "SELECT enclosure_id, count(*) FROM flag WHERE status = 'open' AND deleted = 0 \
+             GROUP BY enclosure_id",
+        )?
+        .query_map([], |r| Ok((r.get(0)?, r.get(1)?)))?
+        .collect::<rusqlite::Result<_>>()?)
+}
 
 /// Confirm a flag: the data are right as recorded, for the reason in `note`.
 /// `flag` is the flag's id or its last characters (at least

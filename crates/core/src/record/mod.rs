@@ -49,7 +49,7 @@ pub fn start_visit(w: &mut Writer<'_>, v: NewVisit) -> Result<Visit> {
 /// Mark a visit complete.
 pub fn complete_visit(w: &mut Writer<'_>, visit: VisitId) -> Result<()> {
     let schema =
-        crate::tables::get("visit").ok_or_else(|| Error::State("no visit table".into()))?;
+        crate::tables::get("visit").ok_or_else(|| Error::Invariant("no visit table".into()))?;
     w.update_fields(
         schema,
         &visit.to_string(),
@@ -238,7 +238,7 @@ pub fn cover(
         (CoverMethod::Class, CoverEntry::Class(code)) => {
             let scale = protocol
                 .scale_id
-                .ok_or_else(|| Error::State("the class protocol has no scale".into()))?;
+                .ok_or_else(|| Error::Invariant("the class protocol has no scale".into()))?;
             row.cover_pct = Some(class_midpoint(w, scale, &code, "cover_record")?);
             row.class_code = Some(code);
         }
@@ -329,7 +329,7 @@ pub fn set_leaf_fate(
 ) -> Result<()> {
     use rusqlite::types::Value;
     let schema = crate::tables::get("tagged_leaf")
-        .ok_or_else(|| Error::State("no tagged_leaf table".into()))?;
+        .ok_or_else(|| Error::Invariant("no tagged_leaf table".into()))?;
     w.update_fields(
         schema,
         &leaf.to_string(),

@@ -3,8 +3,6 @@
 
 use std::collections::HashMap;
 
-use rusqlite::Connection;
-
 use crate::model::*;
 use crate::store;
 use crate::{Error, Result};
@@ -42,10 +40,19 @@ pub struct Frame {
 }
 
 impl Frame {
-    /// Read the frame (a plain read, or inside a write transaction through
-    /// [`crate::store::Writer::conn`]).
-    pub fn load(conn: &Connection) -> Result<Frame> {
-        let experiment = super::experiment(conn)?;
+    /// Read the frame (from the store, or inside a write transaction from
+    /// its [`crate::store::Writer`]).
+    pub fn load(source: &impl store::Source) -> Result<Frame> {
+        Frame::load_if_any(source)?.ok_or_else(super::no_experiment)
+    }
+
+    /// Read the frame of a database that may hold no experiment yet (the
+    /// analysis of an empty file): `None` then.
+    pub fn load_if_any(source: &impl store::Source) -> Result<Option<Frame>> {
+        let conn = store::conn_of(source);
+        let Some(experiment) = super::experiment_if_any(conn)? else {
+            return Ok(None);
+        };
         let calendar = Calendar::of(&experiment)?;
         let site_name = store::list::<Site>(conn)?
             .into_iter()
@@ -78,14 +85,14 @@ impl Frame {
             .into_iter()
             .map(|p| ((p.treatment_id, p.taxon_id), p))
             .collect();
-        Ok(Frame {
+        Ok(Some(Frame {
             experiment,
             calendar,
             site_name,
             cages,
             plans,
             schedule: store::list::<ScheduleEntry>(conn)?,
-        })
+        }))
     }
 
     /// A cage by id.

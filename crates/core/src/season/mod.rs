@@ -34,11 +34,13 @@ use crate::{Error, Result};
 
 /// The experiment the database records: the first live row by id (a
 /// database holds one; `init` refuses a second).
-pub fn experiment(conn: &rusqlite::Connection) -> Result<Experiment> {
-    store::list::<Experiment>(conn)?
-        .into_iter()
-        .next()
-        .ok_or_else(no_experiment)
+pub fn experiment(source: &impl store::Source) -> Result<Experiment> {
+    experiment_if_any(source)?.ok_or_else(no_experiment)
+}
+
+/// The experiment the database records, if it holds one yet.
+pub fn experiment_if_any(source: &impl store::Source) -> Result<Option<Experiment>> {
+    store::first::<Experiment>(store::conn_of(source))
 }
 
 /// The error of a database that holds no experiment yet.

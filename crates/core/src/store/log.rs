@@ -68,6 +68,52 @@ pub const INSERT_SQL: &str = "INSERT INTO change_log \
      (device_id, seq, hlc, table_name, row_id, op, field, old_value, new_value) \
      VALUES (?1, ?2, ?3, ?4, ?5, ?6, ?7, ?8, ?9)";
 
+/// One entry another device made, as a change-set being applied stores it
+/// (an insert's fields already packed, [`pack_insert`]).
+#[derive(Debug)]
+pub(crate) struct Received<'a> {
+    /// Its device's sequence number.
+    pub seq: i64,
+    /// Its hybrid-logical-clock timestamp.
+    pub hlc: i64,
+    /// Data table.
+    pub table: &'a str,
+    /// Row id.
+    pub row_id: &'a str,
+    /// What it did.
+    pub op: Op,
+    /// Column (none for an insert, a delete and a restore).
+    pub field: Option<&'a str>,
+    /// Value before.
+    pub old_value: &'a Value,
+    /// Value after (an insert: its packed fields).
+    pub new_value: Value,
+}
+
+/// Store entries of `device_id` received from another device, in the
+/// caller's transaction.
+pub(crate) fn store_received<'a>(
+    conn: &Connection,
+    device_id: &str,
+    entries: impl IntoIterator<Item = Received<'a>>,
+) -> Result<()> {
+    let mut insert = conn.prepare_cached(INSERT_SQL)?;
+    for e in entries {
+        insert.execute(params![
+            device_id,
+            e.seq,
+            e.hlc,
+            e.table,
+            e.row_id,
+            e.op.as_str(),
+            e.field,
+            e.old_value,
+            e.new_value
+        ])?;
+    }
+    Ok(())
+}
+
 /// The packed form of an insert's fields: `[field, value]` pairs, in the
 /// order given (the writer gives the fields that have a value, in column
 /// order). Written straight into one buffer: every row a merge stores is
@@ -136,14 +182,14 @@ fn expand(r: &Row<'_>, out: &mut Vec<LoggedChange>) -> Result<()> {
     let row_id: String = r.get(4)?;
     let op_word: String = r.get(5)?;
     let op = Op::parse(&op_word).ok_or_else(|| {
-        Error::State(format!(
+        Error::Invariant(format!(
             "change log entry {device_id}/{seq}: op {op_word:?} is not insert, update, delete or restore"
         ))
     })?;
     if op == Op::Insert {
         let text: String = r.get(8)?;
         let fields = unpack_insert(&text).map_err(|e| {
-            Error::State(format!(
+            Error::Invariant(format!(
                 "change log entry {device_id}/{seq}: the insert {e}"
             ))
         })?;
@@ -198,11 +244,17 @@ const ROW_ENTRIES: &str =
     select_entries!("WHERE table_name = ?1 AND row_id = ?2 ORDER BY device_id, seq");
 
 /// Every change-log entry of one row, in the order of (device, seq).
-pub fn row_entries(conn: &Connection, table: &str, row_id: &str) -> Result<Vec<LogEntry>> {
-    Ok(query(conn, ROW_ENTRIES, params![table, row_id])?
-        .into_iter()
-        .map(|c| c.entry)
-        .collect())
+pub fn row_entries(
+    source: &impl super::Source,
+    table: &str,
+    row_id: &str,
+) -> Result<Vec<LogEntry>> {
+    Ok(
+        query(super::conn_of(source), ROW_ENTRIES, params![table, row_id])?
+            .into_iter()
+            .map(|c| c.entry)
+            .collect(),
+    )
 }
 
 /// How SQLite plans [`row_entries`] (for the test that it uses the index).

@@ -147,13 +147,13 @@ pub fn migrate(conn: &mut Connection) -> Result<usize> {
         )));
     }
     if current < 0 {
-        return Err(Error::State(format!(
+        return Err(Error::Invariant(format!(
             "the database has a negative schema version {current}; it was not made by fieldcage"
         )));
     }
     let pending = &MIGRATIONS[current as usize..];
     for m in pending {
-        let failed = |e: String| Error::State(format!("migration {} failed: {e}", m.name));
+        let failed = |e: String| Error::Invariant(format!("migration {} failed: {e}", m.name));
         tx.execute_batch(m.sql).map_err(|e| failed(e.to_string()))?;
         if let Some(step) = m.then {
             step(&tx).map_err(|e| failed(e.to_string()))?;

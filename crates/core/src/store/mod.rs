@@ -13,6 +13,7 @@ pub mod log;
 pub(crate) mod merge;
 pub mod migrations;
 mod rows;
+mod source;
 pub(crate) mod sync_state;
 pub mod typed_text;
 mod writer;
@@ -28,6 +29,8 @@ use uuid::Uuid;
 
 pub use hlc::Hlc;
 pub use rows::{Projection, Record, from_values, to_values};
+pub use source::Source;
+pub(crate) use source::conn_of;
 pub use writer::Writer;
 
 use crate::tables::{self, TableSchema};
@@ -188,8 +191,9 @@ impl Store {
         &self.device_id
     }
 
-    /// The connection, for reads. All writes go through [`Store::write`].
-    pub fn conn(&self) -> &Connection {
+    /// The connection, inside this crate (all writes go through
+    /// [`Store::write`]; readers outside take the store as a [`Source`]).
+    pub(crate) fn conn(&self) -> &Connection {
         &self.conn
     }
 
@@ -315,11 +319,52 @@ impl Store {
     pub fn change_count(&self) -> Result<i64> {
         log::count(&self.conn, None, 0)
     }
+
+    /// The connection's durability settings as SQLite reports them now.
+    pub fn settings(&self) -> Result<Settings> {
+        let read = |pragma: &str| -> Result<rusqlite::types::Value> {
+            Ok(self
+                .conn
+                .query_row(&format!("PRAGMA {pragma}"), [], |r| r.get(0))?)
+        };
+        let int = |v: rusqlite::types::Value| match v {
+            Value::Integer(i) => i,
+            _ => -1,
+        };
+        Ok(Settings {
+            journal_mode: match read("journal_mode")? {
+                Value::Text(t) => t.to_ascii_lowercase(),
+                other => format!("{other:?}"),
+            },
+            synchronous: int(read("synchronous")?),
+            foreign_keys: int(read("foreign_keys")?) == 1,
+        })
+    }
+
+    /// Test builds only (the `test-hooks` feature, which no shipped binary
+    /// turns on): set one setting of the store's own connection, to show
+    /// what the durable settings guard against (`synchronous = NORMAL`).
+    #[cfg(feature = "test-hooks")]
+    pub fn set_pragma_for_test(&self, name: &str, value: &str) -> Result<()> {
+        self.conn
+            .execute_batch(&format!("PRAGMA {name} = {value};"))?;
+        Ok(())
+    }
+
+    /// Rows stored in a table, tombstones included.
+    pub fn row_count(&self, schema: &TableSchema) -> Result<i64> {
+        Ok(self
+            .conn
+            .query_row(&format!("SELECT count(*) FROM {}", schema.name), [], |r| {
+                r.get(0)
+            })?)
+    }
 }
 
-/// One live row of `R` by id on a connection: [`Store::get`] for code that
-/// reads inside a write transaction ([`Writer::conn`]).
-pub fn get<R: Record>(conn: &Connection, id: Uuid) -> Result<Option<R>> {
+/// One live row of `R` by id, from any [`Source`] (a [`Writer`] sees its
+/// own transaction's writes).
+pub fn get<R: Record>(source: &impl Source, id: Uuid) -> Result<Option<R>> {
+    let conn = conn_of(source);
     let sql = format!("{} WHERE id = ?1 AND deleted = 0", R::SELECT);
     conn.prepare_cached(&sql)?
         .query_row([id.to_string()], R::from_row)
@@ -327,9 +372,9 @@ pub fn get<R: Record>(conn: &Connection, id: Uuid) -> Result<Option<R>> {
         .map_err(|e| rows::read_error(R::TABLE, e))
 }
 
-/// Every live row of `R` on a connection, ordered by id: [`Store::list`] for
-/// code that reads inside a write transaction ([`Writer::conn`]).
-pub fn list<R: Record>(conn: &Connection) -> Result<Vec<R>> {
+/// Every live row of `R`, ordered by id, from any [`Source`].
+pub fn list<R: Record>(source: &impl Source) -> Result<Vec<R>> {
+    let conn = conn_of(source);
     let sql = format!("{} WHERE deleted = 0 ORDER BY id", R::SELECT);
     let mut stmt = conn.prepare_cached(&sql)?;
     let records = stmt.query_map([], R::from_row)?;
@@ -339,7 +384,8 @@ pub fn list<R: Record>(conn: &Connection) -> Result<Vec<R>> {
 }
 
 /// The first live row of `R` by id, if there is one.
-pub fn first<R: Record>(conn: &Connection) -> Result<Option<R>> {
+pub fn first<R: Record>(source: &impl Source) -> Result<Option<R>> {
+    let conn = conn_of(source);
     let sql = format!("{} WHERE deleted = 0 ORDER BY id LIMIT 1", R::SELECT);
     conn.prepare_cached(&sql)?
         .query_row([], R::from_row)
@@ -349,7 +395,8 @@ pub fn first<R: Record>(conn: &Connection) -> Result<Option<R>> {
 
 /// Every live row of `R`, handed to `f` in the order the table stores them
 /// (no sort: for readers that index the rows themselves).
-pub fn each<R: Record>(conn: &Connection, mut f: impl FnMut(R)) -> Result<()> {
+pub fn each<R: Record>(source: &impl Source, mut f: impl FnMut(R)) -> Result<()> {
+    let conn = conn_of(source);
     let sql = format!("{} WHERE deleted = 0", R::SELECT);
     let mut stmt = conn.prepare_cached(&sql)?;
     let mut found = stmt.query([])?;
@@ -361,9 +408,10 @@ pub fn each<R: Record>(conn: &Connection, mut f: impl FnMut(R)) -> Result<()> {
 
 /// [`each`] for a projection: its key and its columns of every live row.
 pub fn each_projected<P: Projection>(
-    conn: &Connection,
+    source: &impl Source,
     mut f: impl FnMut(P::Key, P),
 ) -> Result<()> {
+    let conn = conn_of(source);
     let table = <P::Of as Record>::TABLE;
     let sql = format!("{} WHERE deleted = 0", P::select());
     let mut stmt = conn.prepare_cached(&sql)?;
@@ -378,10 +426,11 @@ pub fn each_projected<P: Projection>(
 /// The live rows of `R` that match a condition on its columns (`filter`, a
 /// parameterised SQL expression such as `enclosure_id = ?1`), ordered by id.
 pub fn live_where<R: Record>(
-    conn: &Connection,
+    source: &impl Source,
     filter: &str,
     params: impl rusqlite::Params,
 ) -> Result<Vec<R>> {
+    let conn = conn_of(source);
     let sql = format!("{} WHERE deleted = 0 AND ({filter}) ORDER BY id", R::SELECT);
     let mut stmt = conn.prepare_cached(&sql)?;
     let records = stmt.query_map(params, R::from_row)?;
@@ -400,7 +449,8 @@ pub(crate) fn device_name(conn: &Connection) -> Result<String> {
 }
 
 /// Every live row of a table on a connection as stored values, ordered by id.
-pub fn rows(conn: &Connection, schema: &TableSchema) -> Result<Vec<Vec<Value>>> {
+pub fn rows(source: &impl Source, schema: &TableSchema) -> Result<Vec<Vec<Value>>> {
+    let conn = conn_of(source);
     let sql = format!(
         "SELECT {} FROM {} WHERE deleted = 0 ORDER BY id",
         schema.column_list(),
@@ -418,6 +468,17 @@ pub(crate) fn table_of<R: Record>() -> &'static TableSchema {
 
 pub(crate) fn read_values(row: &rusqlite::Row<'_>, n: usize) -> rusqlite::Result<Vec<Value>> {
     (0..n).map(|i| row.get::<_, Value>(i)).collect()
+}
+
+/// The durability settings of a store's connection ([`Store::settings`]).
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub struct Settings {
+    /// `wal` for a store.
+    pub journal_mode: String,
+    /// 2 (FULL) for a store.
+    pub synchronous: i64,
+    /// On for a store.
+    pub foreign_keys: bool,
 }
 
 /// Apply the durable settings and read each one back.

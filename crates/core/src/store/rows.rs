@@ -61,7 +61,7 @@ pub trait Projection: Sized {
 pub(crate) fn read_error(table: &str, e: rusqlite::Error) -> Error {
     match e {
         rusqlite::Error::FromSqlConversionFailure(..) | rusqlite::Error::InvalidColumnType(..) => {
-            Error::State(format!("{table}: stored row does not fit its record: {e}"))
+            Error::Invariant(format!("{table}: stored row does not fit its record: {e}"))
         }
         e => e.into(),
     }
@@ -70,9 +70,9 @@ pub(crate) fn read_error(table: &str, e: rusqlite::Error) -> Error {
 /// A record as stored values, in the schema's column order.
 pub fn to_values<R: Record>(schema: &TableSchema, record: &R) -> Result<Vec<Value>> {
     let Json::Object(mut map) = serde_json::to_value(record)
-        .map_err(|e| Error::State(format!("{}: cannot serialise record: {e}", schema.name)))?
+        .map_err(|e| Error::Invariant(format!("{}: cannot serialise record: {e}", schema.name)))?
     else {
-        return Err(Error::State(format!(
+        return Err(Error::Invariant(format!(
             "{}: record is not a struct",
             schema.name
         )));
@@ -89,7 +89,7 @@ pub fn to_values<R: Record>(schema: &TableSchema, record: &R) -> Result<Vec<Valu
         .collect::<Result<Vec<_>>>()?;
     if let Some(extra) = map.keys().next() {
         // A struct field with no column is a programming error, caught by the tests.
-        return Err(Error::State(format!(
+        return Err(Error::Invariant(format!(
             "{}: record field {extra} is not a column of the table schema",
             schema.name
         )));
@@ -106,7 +106,7 @@ pub fn from_values<R: Record>(schema: &TableSchema, values: Vec<Value>) -> Resul
         .map(|(f, v)| (f.name.clone(), value_to_json(f.kind, v)))
         .collect();
     serde_json::from_value(Json::Object(map)).map_err(|e| {
-        Error::State(format!(
+        Error::Invariant(format!(
             "{}: stored row does not fit its record: {e}",
             schema.name
         ))

@@ -71,8 +71,9 @@ impl<'a> Writer<'a> {
         self.ids.next()
     }
 
-    /// The transaction, for reads that must see this transaction's writes.
-    pub fn conn(&self) -> &rusqlite::Connection {
+    /// The transaction, inside this crate (readers outside take the writer
+    /// as a [`Source`](super::Source), to see this transaction's writes).
+    pub(crate) fn conn(&self) -> &rusqlite::Connection {
         &self.tx
     }
 
@@ -91,7 +92,7 @@ impl<'a> Writer<'a> {
     /// Insert one row given as values in the schema's column order.
     pub fn insert_values(&mut self, schema: &TableSchema, values: Vec<Value>) -> Result<()> {
         if values.len() != schema.fields.len() {
-            return Err(Error::State(format!(
+            return Err(Error::Invariant(format!(
                 "{}: {} values for {} columns",
                 schema.name,
                 values.len(),

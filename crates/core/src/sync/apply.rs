@@ -206,9 +206,9 @@ fn apply_within(
         // An insert's run of entries (its `id` entry first, then the other
         // fields, consecutive: the change-set reader refuses anything else)
         // is stored as one packed entry.
-        let mut insert = tx.prepare_cached(log::INSERT_SQL)?;
         let mut rest = cs.changes.as_slice();
-        while let Some(c) = rest.first() {
+        let entries = std::iter::from_fn(|| {
+            let c = rest.first()?;
             let run = if c.op == Op::Insert {
                 1 + rest[1..]
                     .iter()
@@ -227,19 +227,19 @@ fn apply_within(
             } else {
                 (c.field, c.new_value.clone())
             };
-            insert.execute(params![
-                cs.device_id,
-                c.seq,
-                c.hlc,
-                c.table,
-                c.row_id,
-                c.op.as_str(),
-                field,
-                c.old_value,
-                value
-            ])?;
             rest = &rest[run..];
-        }
+            Some(log::Received {
+                seq: c.seq,
+                hlc: c.hlc,
+                table: c.table,
+                row_id: &c.row_id,
+                op: c.op,
+                field,
+                old_value: &c.old_value,
+                new_value: value,
+            })
+        });
+        log::store_received(tx, &cs.device_id, entries)?;
     }
     for (device, seq) in &cs.seen {
         sync_state::record_knowledge(tx, &cs.device_id, cs.first_seq, device, *seq)?;

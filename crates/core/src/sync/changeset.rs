@@ -141,14 +141,16 @@ pub fn encode(
     changes: &[Change],
 ) -> Result<(Vec<u8>, String)> {
     let (Some(first), Some(last)) = (changes.first(), changes.last()) else {
-        return Err(Error::State("a change-set needs at least one entry".into()));
+        return Err(Error::Invariant(
+            "a change-set needs at least one entry".into(),
+        ));
     };
     let seen_text: Vec<String> = seen.iter().map(|(d, s)| format!("{d}:{s}")).collect();
     let mut w = csv::WriterBuilder::new()
         .flexible(true)
         .terminator(csv::Terminator::Any(b'\n'))
         .from_writer(Vec::new());
-    let csv_err = |e: csv::Error| Error::State(format!("writing a change-set: {e}"));
+    let csv_err = |e: csv::Error| Error::Invariant(format!("writing a change-set: {e}"));
     w.write_record([
         MAGIC.to_owned(),
         format!("version={}", format_version()),
@@ -175,7 +177,7 @@ pub fn encode(
     }
     let mut bytes = w
         .into_inner()
-        .map_err(|e| Error::State(format!("writing a change-set: {e}")))?;
+        .map_err(|e| Error::Invariant(format!("writing a change-set: {e}")))?;
     let hash = sha256_hex(&bytes);
     bytes.extend_from_slice(format!("sha256,{hash}\n").as_bytes());
     Ok((bytes, hash))

@@ -24,7 +24,7 @@ use rusqlite::types::Value;
 use rusqlite::{Connection, OptionalExtension};
 
 use crate::store::log::{self, LogEntry};
-use crate::store::{Op, Store};
+use crate::store::{self, Op, Store};
 use crate::tables;
 use crate::{Error, Result};
 
@@ -303,7 +303,7 @@ fn version(
     seq: i64,
 ) -> Result<Version> {
     let change = log::entry_at(conn, device, seq)?
-        .ok_or_else(|| Error::State(format!("the change log holds no entry {device}/{seq}")))?;
+        .ok_or_else(|| Error::Invariant(format!("the change log holds no entry {device}/{seq}")))?;
     version_of(conn, me, local_name, &change.row_id, &change.entry)
 }
 
@@ -417,7 +417,9 @@ pub fn resolve_conflict(store: &mut Store, key: &str, choice: ConflictChoice) ->
                 .iter()
                 .find(|fk| fk.field == *field)
                 .and_then(|fk| tables::get(&fk.resource))
-                .ok_or_else(|| Error::State(format!("{} has no reference {field}", schema.name)))?;
+                .ok_or_else(|| {
+                    Error::Invariant(format!("{} has no reference {field}", schema.name))
+                })?;
             let parent: String = w.conn().query_row(
                 &format!("SELECT {field} FROM {} WHERE id = ?1", schema.name),
                 [&conflict.row_id],
@@ -425,10 +427,86 @@ pub fn resolve_conflict(store: &mut Store, key: &str, choice: ConflictChoice) ->
             )?;
             w.restore(parent_table, &parent)
         }
-        (ConflictKind::Orphan, None, _) => {
-            Err(Error::State(format!("conflict {key} names no reference")))
-        }
+        (ConflictKind::Orphan, None, _) => Err(Error::Invariant(format!(
+            "conflict {key} names no reference"
+        ))),
     })
+}
+
+/// A record in people's words: its cage, its visit (kind and date), its
+/// taxon, its tag. Falls back to the table and id.
+pub fn describe_record(source: &impl store::Source, table: &str, row_id: &str) -> String {
+    let fallback = format!("{} {row_id}", table.replace('_', " "));
+    let Some(schema) = tables::get(table) else {
+        return fallback;
+    };
+    let has = |f: &str| schema.fields.iter().any(|x| x.name == f);
+    let conn = store::conn_of(source);
+    let one = |sql: &str| -> Option<String> {
+        conn.query_row(sql, [row_id], |r| r.get::<_, Option<String>>(0))
+            .optional()
+            .ok()
+            .flatten()
+            .flatten()
+    };
+    let mut parts: Vec<String> = vec![table.replace('_', " ")];
+    let visit = if table == "visit" {
+        Some("?1".to_owned())
+    } else if has("visit_id") {
+        Some(format!("(SELECT visit_id FROM {table} WHERE id = ?1)"))
+    } else {
+        None
+    };
+    if let Some(visit) = visit {
+        // The visit's kind is said once: by the table name, or for a visit here.
+        let kind = if table == "visit" {
+            "v.kind || ' ' || "
+        } else {
+            ""
+        };
+        if let Some(cage) = one(&format!(
+            "SELECT e.label || ' · ' || {kind}substr(v.visited_at, 1, 10) \
+             FROM visit v JOIN enclosure e ON e.id = v.enclosure_id WHERE v.id = {visit}"
+        )) {
+            parts.push(format!("cage {cage}"));
+        }
+    } else if has("enclosure_id")
+        && let Some(cage) = one(&format!(
+            "SELECT e.label FROM {table} t JOIN enclosure e ON e.id = t.enclosure_id WHERE t.id = ?1"
+        ))
+    {
+        parts.push(format!("cage {cage}"));
+    }
+    if has("taxon_id")
+        && let Some(code) = one(&format!(
+            "SELECT x.code FROM {table} t JOIN taxon x ON x.id = t.taxon_id WHERE t.id = ?1"
+        ))
+    {
+        parts.push(code);
+    }
+    if has("leaf_id")
+        && let Some(tag) = one(&format!(
+            "SELECT l.tag_label FROM {table} t JOIN tagged_leaf l ON l.id = t.leaf_id WHERE t.id = ?1"
+        ))
+    {
+        parts.push(format!("leaf {tag}"));
+    } else if table == "tagged_leaf"
+        && let Some(tag) = one("SELECT tag_label FROM tagged_leaf WHERE id = ?1")
+    {
+        parts.push(format!("leaf {tag}"));
+    } else if (table == "enclosure" || has("label"))
+        && let Some(label) = one(&format!("SELECT label FROM {table} WHERE id = ?1"))
+    {
+        parts.push(label);
+    } else if has("code")
+        && let Some(code) = one(&format!("SELECT code FROM {table} WHERE id = ?1"))
+    {
+        parts.push(code);
+    }
+    if parts.len() == 1 {
+        return fallback;
+    }
+    parts.join(" · ")
 }
 
 #[cfg(test)]

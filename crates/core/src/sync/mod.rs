@@ -43,7 +43,9 @@ use std::path::{Path, PathBuf};
 use rusqlite::{Connection, OptionalExtension, params};
 use uuid::Uuid;
 
-pub use conflicts::{Conflict, ConflictChoice, ConflictKind, Version, conflicts, resolve_conflict};
+pub use conflicts::{
+    Conflict, ConflictChoice, ConflictKind, Version, conflicts, describe_record, resolve_conflict,
+};
 pub use target::{check_target, save_target, saved_target};
 
 use crate::disk::{Disk, OsDisk};
@@ -560,7 +562,7 @@ fn own_changes(conn: &Connection, me: &str, first: i64, last: i64) -> Result<Vec
         .into_iter()
         .map(|c| {
             let unknown = || {
-                Error::State(format!(
+                Error::Invariant(format!(
                     "change log entry {me}/{}: {}.{} is not a column of this build's tables",
                     c.entry.seq,
                     c.table,
@@ -606,7 +608,7 @@ fn own_changeset_bytes(
 ) -> Result<(Vec<u8>, String)> {
     let changes = own_changes(conn, me, first, last)?;
     if changes.len() as i64 != last - first + 1 {
-        return Err(Error::State(format!(
+        return Err(Error::Invariant(format!(
             "this database does not hold its own changes {first}-{last}"
         )));
     }
@@ -669,7 +671,7 @@ fn write_own(
         };
         let (bytes, sha) = own_changeset_bytes(store.conn(), &me, &w.name, w.first, w.last)?;
         if sha != w.sha256 {
-            return Err(Error::State(format!(
+            return Err(Error::Invariant(format!(
                 "{}: cannot be written again exactly (its content changed in this database)",
                 path.display()
             )));
