@@ -649,3 +649,224 @@ async fn a_broken_invariant_is_internal_and_a_persons_conflict_is_a_conflict() {
         "{problem}"
     );
 }
+
+/// The census row of a taxon in a cage as stored: (alive, dead, missing).
+fn census_of(api: &Api, cage: &str, taxon: &str) -> Vec<(Option<i64>, Option<i64>, Option<i64>)> {
+    let conn = rusqlite::Connection::open(&api.db).unwrap();
+    let mut stmt = conn
+        .prepare(
+            "SELECT c.alive, c.dead, c.missing FROM census c JOIN visit v ON v.id = c.visit_id \
+             WHERE v.enclosure_id = ?1 AND c.taxon_id = ?2 AND c.deleted = 0",
+        )
+        .unwrap();
+    stmt.query_map([cage, taxon], |r| Ok((r.get(0)?, r.get(1)?, r.get(2)?)))
+        .unwrap()
+        .collect::<Result<_, _>>()
+        .unwrap()
+}
+
+/// Issue 15: a double tap or a retry sends the same save twice; with its
+/// operation id the second is answered with the first answer and writes
+/// nothing (not a second restock, not a second leaf).
+#[tokio::test]
+async fn regression_15_the_same_operation_id_twice_writes_once() {
+    let api = api();
+    let (cage, sheet) = first_cage(&api).await;
+    let slug = taxon(&sheet, "SLUG");
+    let op_id = "01900000-0000-7000-8000-00000000aa01";
+    let restock = json!({ "op_id": op_id, "enclosure_id": cage, "taxon_id": slug, "kind": "restock", "count": 3 });
+    let first = api.ok("save_stocking", restock.clone()).await;
+    let after_first = api.stored();
+    let second = api.ok("save_stocking", restock.clone()).await;
+    assert_eq!(
+        first, second,
+        "the repeat is answered with the first answer"
+    );
+    assert_eq!(api.stored(), after_first, "the repeat wrote nothing");
+    // Two copies at once (two requests in flight after a double tap).
+    let tag = |n: u32| json!({ "op_id": format!("01900000-0000-7000-8000-00000000bb0{n}"), "enclosure_id": cage, "taxon_id": taxon(&sheet, "GRA1"), "tag_label": "T-x" });
+    let (a, b) = tokio::join!(api.call("tag_leaf", tag(1)), api.call("tag_leaf", tag(1)));
+    assert_eq!((a.0, b.0), (StatusCode::OK, StatusCode::OK), "{a:?} {b:?}");
+    assert_eq!(a.1["id"], b.1["id"]);
+    let leaves = api.ok("sheet", json!({ "enclosure_id": cage })).await["leaves"]
+        .as_array()
+        .unwrap()
+        .len();
+    assert_eq!(leaves, 1, "one leaf tagged");
+    // An id names one request: the same id for another operation is refused.
+    let (status, body) = api
+        .call(
+            "save_census",
+            json!({ "op_id": op_id, "enclosure_id": cage, "taxon_id": slug, "alive": 4 }),
+        )
+        .await;
+    assert_eq!(status, StatusCode::CONFLICT, "{body}");
+    assert!(
+        body["error"]["message"]
+            .as_str()
+            .unwrap()
+            .contains("save_stocking"),
+        "{body}"
+    );
+}
+
+/// Issue 15: two tabs on one cage. A save names only the field changed and
+/// what the person saw there: it never puts back the other fields' old
+/// values, and a field that moved meanwhile is refused with both values.
+#[tokio::test]
+async fn regression_15_a_stale_save_never_overwrites_what_it_did_not_see() {
+    let api = api();
+    let (cage, sheet) = first_cage(&api).await;
+    let slug = taxon(&sheet, "SLUG");
+    let census = |fields: Value| {
+        let mut args = json!({ "enclosure_id": cage, "taxon_id": slug });
+        args.as_object_mut()
+            .unwrap()
+            .extend(fields.as_object().unwrap().clone());
+        args
+    };
+    api.ok(
+        "save_census",
+        census(json!({ "alive": 7, "dead": 1, "missing": 0 })),
+    )
+    .await;
+    // Tab A (fresh) changes alive 7 -> 6.
+    api.ok(
+        "save_census",
+        census(json!({ "alive": 6, "base": { "alive": 7 } })),
+    )
+    .await;
+    // Tab B still shows alive 7; it changes dead 1 -> 2: alive stays 6.
+    api.ok(
+        "save_census",
+        census(json!({ "dead": 2, "base": { "dead": 1 } })),
+    )
+    .await;
+    assert_eq!(census_of(&api, &cage, &slug), [(Some(6), Some(2), Some(0))]);
+    // Tab B now changes alive, which it saw as 7: refused, nothing written.
+    let before = api.stored();
+    let (status, body) = api
+        .call(
+            "save_census",
+            census(json!({ "alive": 5, "base": { "alive": 7 } })),
+        )
+        .await;
+    assert_eq!(status, StatusCode::CONFLICT, "{body}");
+    let message = body["error"]["message"].as_str().unwrap();
+    for shown in ["Alive", "6", "7", "5"] {
+        assert!(message.contains(shown), "{shown} in {message}");
+    }
+    assert_eq!(body["error"]["field"], "census.alive");
+    assert_eq!(api.stored(), before, "the stale save wrote nothing");
+    // The same value saved from both tabs is no conflict.
+    api.ok(
+        "save_census",
+        census(json!({ "alive": 6, "base": { "alive": 7 } })),
+    )
+    .await;
+    // Cover: a pin counter tapped on a stale sheet is refused too.
+    let cover = |hits: i64, base: Value| json!({ "enclosure_id": cage, "category": "litter", "percent": hits, "base": { "value_pct": base } });
+    api.ok("save_cover", cover(40, Value::Null)).await;
+    let (status, body) = api.call("save_cover", cover(45, Value::Null)).await;
+    assert_eq!(status, StatusCode::CONFLICT, "{body}");
+    api.ok("save_cover", cover(45, json!(40))).await;
+}
+
+/// Issue 15: letters and decimals in a count are refused with the field's
+/// label and the value; what is stored stays, and the next valid entry
+/// saves (the refused value does not stick to the row).
+#[tokio::test]
+async fn regression_15_counts_are_whole_numbers_and_a_refusal_does_not_stick() {
+    let api = api();
+    let (cage, sheet) = first_cage(&api).await;
+    let slug = taxon(&sheet, "SLUG");
+    api.ok(
+        "save_census",
+        json!({ "enclosure_id": cage, "taxon_id": slug, "alive": 7, "dead": 0 }),
+    )
+    .await;
+    let before = api.stored();
+    for (value, status_wanted, says) in [
+        (
+            json!(1.5),
+            StatusCode::BAD_REQUEST,
+            "Dead: 1.5 is not a whole number",
+        ),
+        (
+            json!("2o"),
+            StatusCode::BAD_REQUEST,
+            "Dead: \"2o\" is not a number",
+        ),
+        (
+            json!(-1),
+            StatusCode::UNPROCESSABLE_ENTITY,
+            "Dead: -1 is below the minimum 0",
+        ),
+    ] {
+        let (status, body) = api
+            .call(
+                "save_census",
+                json!({ "enclosure_id": cage, "taxon_id": slug, "dead": value }),
+            )
+            .await;
+        assert_eq!(status, status_wanted, "{body}");
+        let message = body["error"]["message"].as_str().unwrap();
+        assert!(message.starts_with(says), "{message}");
+    }
+    assert_eq!(api.stored(), before, "no refused count wrote anything");
+    api.ok(
+        "save_census",
+        json!({ "enclosure_id": cage, "taxon_id": slug, "dead": 1 }),
+    )
+    .await;
+    assert_eq!(census_of(&api, &cage, &slug), [(Some(7), Some(1), None)]);
+    // A refused percent names the field in the sheet's words.
+    let (_, body) = api
+        .call(
+            "save_cover",
+            json!({ "enclosure_id": cage, "category": "litter", "percent": 450 }),
+        )
+        .await;
+    let message = body["error"]["message"].as_str().unwrap();
+    assert!(message.starts_with("Percent: 450"), "{message}");
+}
+
+/// Issue 15: clearing a field means "not assessed" (empty), never 0.
+#[tokio::test]
+async fn regression_15_clearing_stores_not_assessed_never_zero() {
+    let api = api();
+    let (cage, sheet) = first_cage(&api).await;
+    let leaf = api
+        .ok(
+            "tag_leaf",
+            json!({ "enclosure_id": cage, "taxon_id": taxon(&sheet, "GRA1"), "tag_label": "T1" }),
+        )
+        .await;
+    let leaf = leaf["id"].as_str().unwrap();
+    // The demo's damage protocol scores classes; clearing sends no value.
+    let scored = api
+        .ok("save_damage", json!({ "leaf_id": leaf, "class_code": "2" }))
+        .await;
+    assert!(scored["record"]["damage_pct"].as_f64().unwrap() > 0.0);
+    let cleared = api.ok("save_damage", json!({ "leaf_id": leaf })).await;
+    assert_eq!(cleared["record"]["id"], scored["record"]["id"]);
+    assert_eq!(
+        (
+            &cleared["record"]["damage_pct"],
+            &cleared["record"]["class_code"]
+        ),
+        (&Value::Null, &Value::Null)
+    );
+    let slug = taxon(&sheet, "SLUG");
+    api.ok(
+        "save_census",
+        json!({ "enclosure_id": cage, "taxon_id": slug, "alive": 4 }),
+    )
+    .await;
+    api.ok(
+        "save_census",
+        json!({ "enclosure_id": cage, "taxon_id": slug, "alive": null }),
+    )
+    .await;
+    assert_eq!(census_of(&api, &cage, &slug), [(None, None, None)]);
+}

@@ -30,13 +30,15 @@ fn migrations_bring_an_empty_file_to_the_latest_version() {
     );
     let mut names = crate::util::table_names(&store);
     // The data tables (schemas/tables), then this device's own bookkeeping:
-    // identity, change log and the sync tables of 0003_sync.
+    // identity, change log, the answers kept for repeated saves (0008) and
+    // the sync tables of 0003_sync.
     names.retain(|n| fieldcage_core::tables::get(n).is_none());
     assert_eq!(
         names,
         [
             "change_log",
             "local_device",
+            "operation_receipt",
             "sync_applied",
             "sync_clock_anomaly",
             "sync_conflict",
@@ -55,7 +57,7 @@ fn migrations_bring_an_empty_file_to_the_latest_version() {
             |r| r.get(0),
         )
         .unwrap();
-    assert_eq!(data, fieldcage_core::tables::all().len() as i64 + 10);
+    assert_eq!(data, fieldcage_core::tables::all().len() as i64 + 11);
 }
 
 #[test]

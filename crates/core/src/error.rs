@@ -23,6 +23,25 @@ pub enum Error {
         /// Why it was refused.
         reason: String,
     },
+    /// A change was refused because the stored value moved after the person
+    /// saw it (another tab, another tablet's sync): applying it would put
+    /// back or overwrite a value they never saw. Nothing was written; show
+    /// both values and let the person enter it again.
+    #[error(
+        "{table}.{field} was changed meanwhile: it is now {stored}; the change from {seen} to {value} was not saved"
+    )]
+    Stale {
+        /// Table.
+        table: String,
+        /// Field.
+        field: String,
+        /// What is stored now.
+        stored: String,
+        /// What the person saw before changing it.
+        seen: String,
+        /// What the person entered.
+        value: String,
+    },
     /// A record the request refers to does not exist (or was deleted).
     #[error("{table} {id} not found")]
     NotFound {

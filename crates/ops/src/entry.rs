@@ -7,17 +7,18 @@ use serde::{Deserialize, Serialize};
 use uuid::Uuid;
 
 use fieldcage_core::model::*;
-use fieldcage_core::record::{self, CoverEntry, CoverTarget, DamageEntry};
+use fieldcage_core::record::{self, CensusEdit, CoverEntry, CoverTarget, DamageEntry};
 use fieldcage_core::store::Writer;
 use fieldcage_core::{Error, Result};
 
+use crate::fields::{self, FieldChange, change, count, count_change};
 use crate::*;
 use fieldcage_core::season::{self, Frame, VisitFor};
 
 impl Service {
     /// Find today's visit of a kind to a cage, or start one.
     pub fn start_visit(&self, req: VisitRequest) -> Result<Visit> {
-        self.write(|w, frame| {
+        self.write_once(req.op_id, "start_visit", |w, frame| {
             self.visit_for(
                 w,
                 frame,
@@ -31,7 +32,7 @@ impl Service {
 
     /// Change a visit's observer, notes or completion.
     pub fn update_visit(&self, req: UpdateVisit) -> Result<Visit> {
-        self.write(|w, _| {
+        self.write_once(req.op_id, "update_visit", |w, _| {
             let mut visit: Visit = w
                 .get(req.visit_id.0)?
                 .ok_or_else(|| not_found("visit", req.visit_id.0))?;
@@ -49,9 +50,18 @@ impl Service {
         })
     }
 
-    /// Save the census of one animal taxon at a cage today.
+    /// Save the census of one animal taxon at a cage today: only the fields
+    /// sent are written; with `base`, a field that moved since the person saw
+    /// it is refused with both values.
     pub fn save_census(&self, req: SaveCensus) -> Result<Saved<Census>> {
-        self.write(|w, frame| {
+        let seen = fields::seen("census", req.base.as_ref())?;
+        let edit = CensusEdit {
+            alive: req.alive,
+            dead: req.dead,
+            missing: req.missing,
+            notes: req.notes,
+        };
+        self.write_once(req.op_id, "save_census", |w, frame| {
             let visit = self.visit_for(
                 w,
                 frame,
@@ -60,14 +70,14 @@ impl Service {
                 req.date,
                 req.observer.as_deref(),
             )?;
-            let row = record::census(w, visit.id, req.taxon_id, req.alive, req.dead, req.missing)?;
+            let row = record::census_edit(w, visit.id, req.taxon_id, edit, &seen)?;
             Ok(Saved::new(row, visit.id))
         })
     }
 
     /// Record animals put in or taken out.
     pub fn save_stocking(&self, req: SaveStocking) -> Result<Saved<StockingEvent>> {
-        self.write(|w, frame| {
+        self.write_once(req.op_id, "save_stocking", |w, frame| {
             let kind = if req.kind == StockingKind::Initial {
                 VisitKind::Stocking
             } else {
@@ -81,7 +91,13 @@ impl Service {
                 req.date,
                 req.observer.as_deref(),
             )?;
-            let row = record::stock(w, visit.id, req.taxon_id, req.kind, req.count, req.stage)?;
+            let details = record::StockDetails {
+                stage: req.stage,
+                sex: req.sex,
+                notes: req.notes,
+            };
+            let row =
+                record::stock_detailed(w, visit.id, req.taxon_id, req.kind, req.count, details)?;
             Ok(Saved::new(row, visit.id))
         })
     }
@@ -114,7 +130,8 @@ impl Service {
                 ));
             }
         };
-        self.write(|w, frame| {
+        let seen = fields::seen("cover_record", req.base.as_ref())?;
+        self.write_once(req.op_id, "save_cover", |w, frame| {
             let visit = self.visit_for(
                 w,
                 frame,
@@ -123,7 +140,7 @@ impl Service {
                 req.date,
                 req.observer.as_deref(),
             )?;
-            let row = record::cover(w, visit.id, target, entry)?;
+            let row = record::cover_seen(w, visit.id, target, entry, &seen)?;
             Ok(Saved::new(row, visit.id))
         })
     }
@@ -133,16 +150,19 @@ impl Service {
         let entry = match (req.class_code, req.percent) {
             (Some(c), None) => DamageEntry::Class(c),
             (None, Some(x)) => DamageEntry::Percent(x),
-            _ => {
+            // Neither: the field was cleared, "not assessed" (never 0 %).
+            (None, None) => DamageEntry::NotAssessed,
+            (Some(_), Some(_)) => {
                 return Err(Error::invalid(
                     "damage_record",
                     "value",
-                    "(none or both)",
-                    "give one of class_code or percent",
+                    "(both)",
+                    "give one of class_code or percent, or neither for not assessed",
                 ));
             }
         };
-        self.write(|w, frame| {
+        let seen = fields::seen("damage_record", req.base.as_ref())?;
+        self.write_once(req.op_id, "save_damage", |w, frame| {
             let leaf: TaggedLeaf = w
                 .get(req.leaf_id.0)?
                 .ok_or_else(|| not_found("tagged_leaf", req.leaf_id.0))?;
@@ -165,14 +185,14 @@ impl Service {
                 req.date,
                 req.observer.as_deref(),
             )?;
-            let row = record::damage(w, visit.id, leaf.id, entry)?;
+            let row = record::damage_seen(w, visit.id, leaf.id, entry, &seen)?;
             Ok(Saved::new(row, visit.id))
         })
     }
 
     /// Tag a new leaf on a cage's plant.
     pub fn tag_leaf(&self, req: TagLeaf) -> Result<TaggedLeaf> {
-        self.write(|w, frame| {
+        self.write_once(req.op_id, "tag_leaf", |w, frame| {
             let date = self.field_date(&frame.calendar, req.date);
             record::tag_leaf(
                 w,
@@ -187,7 +207,7 @@ impl Service {
 
     /// Record that a leaf is lost, or lost and replaced by a newly tagged one.
     pub fn set_leaf_fate(&self, req: LeafFateRequest) -> Result<TaggedLeaf> {
-        self.write(|w, frame| {
+        self.write_once(req.op_id, "set_leaf_fate", |w, frame| {
             let date = self.field_date(&frame.calendar, req.date);
             let leaf: TaggedLeaf = w
                 .get(req.leaf_id.0)?
@@ -218,10 +238,12 @@ impl Service {
     /// Delete a field record (a tombstone; the change log keeps it).
     pub fn delete_record(&self, req: RecordRef) -> Result<Deleted> {
         let schema = season::editable_table(&req.table)?;
-        self.write(|w, _| w.delete(schema, &req.id.to_string()))?;
-        Ok(Deleted {
-            table: req.table,
-            id: req.id,
+        self.write_once(req.op_id, "delete_record", |w, _| {
+            w.delete(schema, &req.id.to_string())?;
+            Ok(Deleted {
+                table: req.table,
+                id: req.id,
+            })
         })
     }
 
@@ -250,6 +272,10 @@ impl Service {
 #[derive(Debug, Clone, Deserialize)]
 #[serde(deny_unknown_fields)]
 pub struct VisitRequest {
+    /// The save's own id (UUIDv7, made by the client): the same request sent
+    /// again with it is answered with the first answer and writes nothing.
+    #[serde(default)]
+    pub op_id: Option<Uuid>,
     /// The cage.
     pub enclosure_id: EnclosureId,
     /// What for.
@@ -266,6 +292,10 @@ pub struct VisitRequest {
 #[derive(Debug, Clone, Deserialize)]
 #[serde(deny_unknown_fields)]
 pub struct UpdateVisit {
+    /// The save's own id (UUIDv7, made by the client): the same request sent
+    /// again with it is answered with the first answer and writes nothing.
+    #[serde(default)]
+    pub op_id: Option<Uuid>,
     /// The visit.
     pub visit_id: VisitId,
     /// New observer (empty clears).
@@ -279,20 +309,35 @@ pub struct UpdateVisit {
     pub completed: Option<bool>,
 }
 
-/// Save one census line.
+/// Save one census line: the fields the person changed, and what they saw.
 #[derive(Debug, Clone, Deserialize)]
 #[serde(deny_unknown_fields)]
 pub struct SaveCensus {
+    /// The save's own id (UUIDv7, made by the client): the same request sent
+    /// again with it is answered with the first answer and writes nothing.
+    #[serde(default)]
+    pub op_id: Option<Uuid>,
     /// The cage.
     pub enclosure_id: EnclosureId,
     /// The animal taxon.
     pub taxon_id: TaxonId,
-    /// Found alive (null = not assessed).
-    pub alive: Option<i64>,
-    /// Found dead (null = not assessed).
-    pub dead: Option<i64>,
-    /// Not found (null = not assessed).
-    pub missing: Option<i64>,
+    /// Found alive (left out = unchanged, null = not assessed).
+    #[serde(default, deserialize_with = "count_change")]
+    pub alive: FieldChange<i64>,
+    /// Found dead (left out = unchanged, null = not assessed).
+    #[serde(default, deserialize_with = "count_change")]
+    pub dead: FieldChange<i64>,
+    /// Not found (left out = unchanged, null = not assessed).
+    #[serde(default, deserialize_with = "count_change")]
+    pub missing: FieldChange<i64>,
+    /// The row's note (left out = unchanged, null or empty = none).
+    #[serde(default, deserialize_with = "change")]
+    pub notes: FieldChange<String>,
+    /// What the person saw of the changed fields before changing them (field
+    /// → value, null for empty): a field stored otherwise meanwhile is
+    /// refused, never overwritten.
+    #[serde(default)]
+    pub base: Option<serde_json::Map<String, serde_json::Value>>,
     /// Local date (today when left out).
     #[serde(default)]
     pub date: Option<NaiveDate>,
@@ -305,17 +350,28 @@ pub struct SaveCensus {
 #[derive(Debug, Clone, Deserialize)]
 #[serde(deny_unknown_fields)]
 pub struct SaveStocking {
+    /// The save's own id (UUIDv7, made by the client): the same request sent
+    /// again with it is answered with the first answer and writes nothing.
+    #[serde(default)]
+    pub op_id: Option<Uuid>,
     /// The cage.
     pub enclosure_id: EnclosureId,
     /// The animal taxon.
     pub taxon_id: TaxonId,
     /// initial / restock / removal.
     pub kind: StockingKind,
-    /// How many.
+    /// How many (a whole number of 0 or more).
+    #[serde(deserialize_with = "count")]
     pub count: i64,
     /// Life stage.
     #[serde(default)]
     pub stage: Option<String>,
+    /// Sex of the animals.
+    #[serde(default)]
+    pub sex: Option<Sex>,
+    /// A note (for a removal: why the animals were taken out).
+    #[serde(default)]
+    pub notes: Option<String>,
     /// Local date (today when left out).
     #[serde(default)]
     pub date: Option<NaiveDate>,
@@ -328,6 +384,14 @@ pub struct SaveStocking {
 #[derive(Debug, Clone, Deserialize)]
 #[serde(deny_unknown_fields)]
 pub struct SaveCover {
+    /// What the person saw of the row before changing it (field → value as
+    /// stored, null for empty): a row stored otherwise meanwhile is refused.
+    #[serde(default)]
+    pub base: Option<serde_json::Map<String, serde_json::Value>>,
+    /// The save's own id (UUIDv7, made by the client): the same request sent
+    /// again with it is answered with the first answer and writes nothing.
+    #[serde(default)]
+    pub op_id: Option<Uuid>,
     /// The cage.
     pub enclosure_id: EnclosureId,
     /// A plant taxon…
@@ -343,7 +407,7 @@ pub struct SaveCover {
     #[serde(default)]
     pub class_code: Option<String>,
     /// Pin hits (method pins).
-    #[serde(default)]
+    #[serde(default, deserialize_with = "fields::count_opt")]
     pub pin_hits: Option<i64>,
     /// Local date (today when left out).
     #[serde(default)]
@@ -357,6 +421,14 @@ pub struct SaveCover {
 #[derive(Debug, Clone, Deserialize)]
 #[serde(deny_unknown_fields)]
 pub struct SaveDamage {
+    /// What the person saw of the row before changing it (field → value as
+    /// stored, null for empty): a row stored otherwise meanwhile is refused.
+    #[serde(default)]
+    pub base: Option<serde_json::Map<String, serde_json::Value>>,
+    /// The save's own id (UUIDv7, made by the client): the same request sent
+    /// again with it is answered with the first answer and writes nothing.
+    #[serde(default)]
+    pub op_id: Option<Uuid>,
     /// The leaf.
     pub leaf_id: LeafId,
     /// Class code (method class).
@@ -377,6 +449,10 @@ pub struct SaveDamage {
 #[derive(Debug, Clone, Deserialize)]
 #[serde(deny_unknown_fields)]
 pub struct TagLeaf {
+    /// The save's own id (UUIDv7, made by the client): the same request sent
+    /// again with it is answered with the first answer and writes nothing.
+    #[serde(default)]
+    pub op_id: Option<Uuid>,
     /// The cage.
     pub enclosure_id: EnclosureId,
     /// The plant taxon.
@@ -395,6 +471,10 @@ pub struct TagLeaf {
 #[derive(Debug, Clone, Deserialize)]
 #[serde(deny_unknown_fields)]
 pub struct LeafFateRequest {
+    /// The save's own id (UUIDv7, made by the client): the same request sent
+    /// again with it is answered with the first answer and writes nothing.
+    #[serde(default)]
+    pub op_id: Option<Uuid>,
     /// The leaf.
     pub leaf_id: LeafId,
     /// lost / replaced.
@@ -408,7 +488,7 @@ pub struct LeafFateRequest {
 }
 
 /// A saved record and the visit it belongs to.
-#[derive(Debug, Clone, Serialize)]
+#[derive(Debug, Clone, Serialize, Deserialize)]
 pub struct Saved<T> {
     /// The record as stored.
     pub record: T,
@@ -429,7 +509,7 @@ impl<T> Saved<T> {
 }
 
 /// A deleted record.
-#[derive(Debug, Clone, Serialize)]
+#[derive(Debug, Clone, Serialize, Deserialize)]
 pub struct Deleted {
     /// Table.
     pub table: String,

@@ -47,7 +47,7 @@ impl Service {
     /// ([`fieldcage_core::season::undo`]).
     pub fn undo(&self, req: RecordRef) -> Result<Undone> {
         let schema = season::editable_table(&req.table)?;
-        self.write(|w, _| season::undo(w, schema, req.id))
+        self.write_once(req.op_id, "undo", |w, _| season::undo(w, schema, req.id))
     }
 }
 
@@ -59,6 +59,10 @@ pub struct RecordRef {
     pub table: String,
     /// Row id.
     pub id: Uuid,
+    /// For undo and delete: the request's own id (a second tap on Undo with
+    /// the same id undoes once).
+    #[serde(default)]
+    pub op_id: Option<Uuid>,
 }
 
 /// One change-log entry of a record.

@@ -18,6 +18,7 @@
 
 pub mod auto_sync;
 pub mod entry;
+pub mod fields;
 pub mod history;
 #[cfg(feature = "args")]
 pub mod launch;
@@ -116,7 +117,13 @@ fn run<Req: DeserializeOwned, Res: Serialize>(
     let req: Req = serde_path_to_error::deserialize(args).map_err(|e| {
         let path = e.path().to_string();
         let field = (path != ".").then_some(path);
-        Problem::bad_request(field, e.into_inner().to_string())
+        let inner = e.into_inner().to_string();
+        // In the sheet's words where the field is one the crew fills in.
+        let message = match field.as_deref().and_then(fields::label) {
+            Some(label) => format!("{label}: {inner}"),
+            None => inner,
+        };
+        Problem::bad_request(field, message)
     })?;
     let res = op(service, req)?;
     serde_json::to_value(res).map_err(|e| Problem {
@@ -181,6 +188,43 @@ impl Service {
         self.store().write(|w| {
             let frame = Frame::load(w)?;
             f(w, &frame)
+        })
+    }
+
+    /// [`Service::write`] for a save that may be sent more than once (a
+    /// double tap, a retry after the connection dropped): with an operation
+    /// id, the answer is kept in the same transaction, and a request whose
+    /// id already has one is answered with it and writes nothing. The check
+    /// runs inside the write transaction, so two copies arriving together
+    /// (two processes, two threads) still write once.
+    pub(crate) fn write_once<T: Serialize + DeserializeOwned>(
+        &self,
+        op_id: Option<uuid::Uuid>,
+        operation: &'static str,
+        f: impl FnOnce(&mut Writer<'_>, &Frame) -> Result<T>,
+    ) -> Result<T> {
+        let Some(op_id) = op_id else {
+            return self.write(f);
+        };
+        let key = op_id.to_string();
+        self.store().write(|w| {
+            if let Some(receipt) = w.receipt(&key)? {
+                if receipt.operation != operation {
+                    return Err(Error::State(format!(
+                        "operation id {key} was already used for {}; a new entry needs a new id",
+                        receipt.operation
+                    )));
+                }
+                return serde_json::from_str(&receipt.response).map_err(|e| {
+                    Error::Invariant(format!("the kept answer of {key} does not read back: {e}"))
+                });
+            }
+            let frame = Frame::load(w)?;
+            let out = f(w, &frame)?;
+            let response = serde_json::to_string(&out)
+                .map_err(|e| Error::Invariant(format!("an answer that is not JSON: {e}")))?;
+            w.keep_receipt(&key, operation, &response)?;
+            Ok(out)
         })
     }
 

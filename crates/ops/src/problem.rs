@@ -116,7 +116,30 @@ impl From<Error> for Problem {
                 reason,
             } => Problem {
                 code: ProblemCode::InvalidValue,
-                message: format!("{table}.{field} {reason} (value: {value})"),
+                // In the sheet's words where the crew fills the field in
+                // ("Dead: 1.5 is not a whole number"); the field's stored
+                // name stays in `field` for the analyst and the API.
+                message: match crate::fields::label(&field) {
+                    Some(label) => format!("{label}: {value} {reason}"),
+                    None => format!("{table}.{field} {reason} (value: {value})"),
+                },
+                field: Some(format!("{table}.{field}")),
+                value: Some(value),
+            },
+            Error::Stale {
+                table,
+                field,
+                stored,
+                seen,
+                value,
+            } => Problem {
+                code: ProblemCode::Conflict,
+                message: format!(
+                    "{}: changed meanwhile (another tab or tablet) to {stored}; you saw {seen} \
+                     and entered {value}, which was not saved. Look at the value now shown and \
+                     enter yours again if it is still right.",
+                    crate::fields::label(&field).unwrap_or(&field)
+                ),
                 field: Some(format!("{table}.{field}")),
                 value: Some(value),
             },

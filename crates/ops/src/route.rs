@@ -26,6 +26,7 @@ impl Service {
             site: frame.site_name.clone(),
             start_date: frame.experiment.start_date,
             date,
+            today: self.field_date(&frame.calendar, None),
             day: frame.calendar.day_of(date),
             device_id: store.device_id().to_owned(),
             device_name: store.device_name()?,
@@ -137,6 +138,9 @@ pub struct Overview {
     pub start_date: NaiveDate,
     /// The field day.
     pub date: NaiveDate,
+    /// The field day the server opens on (its fixed day, else the local
+    /// date now): a screen on another day says so.
+    pub today: NaiveDate,
     /// Day of the experiment.
     pub day: i64,
     /// This device.

@@ -98,7 +98,18 @@ impl Service {
                     (Some(alive), Some(p)) => stocking::restock_due(p, alive, restocked_today),
                     _ => None,
                 };
+                let puts: Vec<stocking::Put> = events
+                    .iter()
+                    .filter(|e| e.taxon_id == t.id)
+                    .map(|e| stocking::Put {
+                        date: visit_day[&e.visit_id],
+                        kind: e.kind,
+                        count: e.count,
+                    })
+                    .collect();
+                let last_census = last.and_then(|c| Some((visit_day[&c.visit_id], c.alive?)));
                 AnimalLine {
+                    at_risk: stocking::at_risk(&puts, last_census, date),
                     taxon: TaxonLine::from(t),
                     planned: plan.map(|p| p.initial_count),
                     restock_below,
@@ -247,6 +258,9 @@ pub struct AnimalLine {
     pub today: Option<Census>,
     /// How many to add to reach the planned count, when below the threshold.
     pub restock_suggested: Option<i64>,
+    /// How many today's census must account for (alive + dead + missing):
+    /// [`fieldcage_core::season::stocking::at_risk`]; none before stocking.
+    pub at_risk: Option<i64>,
 }
 
 /// A class of a scale.

@@ -8,8 +8,12 @@
 use chrono::{DateTime, FixedOffset};
 use rusqlite::OptionalExtension;
 
+use rusqlite::types::Value;
+
 use crate::model::*;
-use crate::store::Writer;
+use crate::store::merge::same_value;
+use crate::store::{Writer, to_values};
+use crate::tables::{TableSchema, display_value};
 use crate::{Error, Result};
 
 /// Fields of a new visit.
@@ -67,6 +71,33 @@ pub fn stock(
     count: i64,
     stage: Option<String>,
 ) -> Result<StockingEvent> {
+    let details = StockDetails {
+        stage,
+        ..StockDetails::default()
+    };
+    stock_detailed(w, visit, taxon, kind, count, details)
+}
+
+/// What a stocking event may say beyond its count.
+#[derive(Debug, Clone, Default, PartialEq)]
+pub struct StockDetails {
+    /// Life stage.
+    pub stage: Option<String>,
+    /// Sex of the animals.
+    pub sex: Option<Sex>,
+    /// A note: for a removal, why the animals were taken out.
+    pub notes: Option<String>,
+}
+
+/// [`stock`] with the stage, the sex and a note.
+pub fn stock_detailed(
+    w: &mut Writer<'_>,
+    visit: VisitId,
+    taxon: TaxonId,
+    kind: StockingKind,
+    count: i64,
+    details: StockDetails,
+) -> Result<StockingEvent> {
     expect_visit(
         w,
         visit,
@@ -74,15 +105,16 @@ pub fn stock(
         "stocking_event",
     )?;
     expect_animal(w, taxon, "stocking_event")?;
+    let blank = |t: Option<String>| t.map(|t| t.trim().to_owned()).filter(|t| !t.is_empty());
     let event = StockingEvent {
         id: StockingEventId(w.new_id()),
         visit_id: visit,
         taxon_id: taxon,
         kind,
         count,
-        stage,
-        sex: None,
-        notes: None,
+        stage: blank(details.stage),
+        sex: details.sex,
+        notes: blank(details.notes),
     };
     w.insert(&event)?;
     Ok(event)
@@ -98,17 +130,42 @@ pub fn census(
     dead: Option<i64>,
     missing: Option<i64>,
 ) -> Result<Census> {
-    expect_visit(w, visit, &[VisitKind::Census], "census")?;
-    expect_animal(w, taxon, "census")?;
-    let row = Census {
-        id: CensusId(w.new_id()),
-        visit_id: visit,
-        taxon_id: taxon,
-        alive,
-        dead,
-        missing,
+    let edit = CensusEdit {
+        alive: Some(alive),
+        dead: Some(dead),
+        missing: Some(missing),
         notes: None,
     };
+    census_edit(w, visit, taxon, edit, &Seen::default())
+}
+
+/// The fields of a census row a person changed: `None` = not touched (the
+/// stored value stays), `Some(None)` = cleared (not assessed).
+#[derive(Debug, Clone, Default, PartialEq)]
+pub struct CensusEdit {
+    /// Found alive.
+    pub alive: Option<Option<i64>>,
+    /// Found dead.
+    pub dead: Option<Option<i64>>,
+    /// Not found.
+    pub missing: Option<Option<i64>>,
+    /// The row's note.
+    pub notes: Option<Option<String>>,
+}
+
+/// Change the census of one animal taxon at a visit, field by field: only
+/// the fields in `edit` are written, so a save never puts back a value the
+/// person did not touch. With `seen`, a field that moved since the person
+/// saw it is refused ([`Error::Stale`]).
+pub fn census_edit(
+    w: &mut Writer<'_>,
+    visit: VisitId,
+    taxon: TaxonId,
+    edit: CensusEdit,
+    seen: &Seen,
+) -> Result<Census> {
+    expect_visit(w, visit, &[VisitKind::Census], "census")?;
+    expect_animal(w, taxon, "census")?;
     let existing: Option<CensusId> = w
         .conn()
         .query_row(
@@ -117,11 +174,86 @@ pub fn census(
             |r| r.get(0),
         )
         .optional()?;
-    save(w, existing.map(|id| id.0), row, |old, new| Census {
+    let fresh = Census {
+        id: CensusId(w.new_id()),
+        visit_id: visit,
+        taxon_id: taxon,
+        alive: edit.alive.flatten(),
+        dead: edit.dead.flatten(),
+        missing: edit.missing.flatten(),
+        notes: edit
+            .notes
+            .clone()
+            .flatten()
+            .filter(|n| !n.trim().is_empty()),
+    };
+    save(w, existing.map(|id| id.0), fresh, seen, |old, new| Census {
         id: old.id,
-        notes: old.notes,
-        ..new
+        alive: if edit.alive.is_some() {
+            new.alive
+        } else {
+            old.alive
+        },
+        dead: if edit.dead.is_some() {
+            new.dead
+        } else {
+            old.dead
+        },
+        missing: if edit.missing.is_some() {
+            new.missing
+        } else {
+            old.missing
+        },
+        notes: if edit.notes.is_some() {
+            new.notes
+        } else {
+            old.notes
+        },
+        ..old
     })
+}
+
+/// What a person saw of a row before changing it: stored values by field
+/// name (a null where nothing was stored). A save that carries them is
+/// refused with [`Error::Stale`] when a field moved meanwhile to a value
+/// that is neither what was seen nor what is being saved.
+#[derive(Debug, Clone, Default, PartialEq)]
+pub struct Seen(pub Vec<(String, Value)>);
+
+impl Seen {
+    /// Check `seen` against the stored row (`None`: no row yet) and the row
+    /// about to be stored.
+    fn check(&self, table: &TableSchema, stored: Option<&[Value]>, next: &[Value]) -> Result<()> {
+        for (field, saw) in &self.0 {
+            let Some(i) = table.fields.iter().position(|f| f.name == *field) else {
+                return Err(Error::invalid(
+                    &table.name,
+                    field,
+                    display_value(saw),
+                    "is not a field of the table",
+                ));
+            };
+            let now = stored.map_or(&Value::Null, |row| &row[i]);
+            if !same_value(now, saw) && !same_value(now, &next[i]) {
+                return Err(Error::Stale {
+                    table: table.name.clone(),
+                    field: field.clone(),
+                    stored: shown(now),
+                    seen: shown(saw),
+                    value: shown(&next[i]),
+                });
+            }
+        }
+        Ok(())
+    }
+}
+
+/// A stored value as a person reads it ("empty" for not assessed).
+fn shown(v: &Value) -> String {
+    match v {
+        Value::Null => "empty".to_owned(),
+        other => display_value(other),
+    }
 }
 
 /// What a cover row is about.
@@ -154,6 +286,18 @@ pub fn cover(
     visit: VisitId,
     target: CoverTarget,
     entry: CoverEntry,
+) -> Result<CoverRecord> {
+    cover_seen(w, visit, target, entry, &Seen::default())
+}
+
+/// [`cover`], refused with [`Error::Stale`] when the stored row moved since
+/// the person saw it (`seen`).
+pub fn cover_seen(
+    w: &mut Writer<'_>,
+    visit: VisitId,
+    target: CoverTarget,
+    entry: CoverEntry,
+    seen: &Seen,
 ) -> Result<CoverRecord> {
     expect_visit(w, visit, &[VisitKind::Cover], "cover_record")?;
     let protocol = cover_protocol(w)?;
@@ -265,23 +409,31 @@ pub fn cover(
             |r| r.get(0),
         )
         .optional()?;
-    save(w, existing.map(|id| id.0), row, |old, new| CoverRecord {
-        id: old.id,
-        notes: old.notes,
-        ..new
+    save(w, existing.map(|id| id.0), row, seen, |old, new| {
+        CoverRecord {
+            id: old.id,
+            notes: old.notes,
+            ..new
+        }
     })
 }
 
 /// Insert `fresh`, or, when a row for the same visit and target exists,
 /// store `merge(existing, fresh)` over it, keeping the stored id (only
-/// changed fields are logged).
+/// changed fields are logged). `seen` is checked against the stored row
+/// first.
 fn save<R: crate::store::Record>(
     w: &mut Writer<'_>,
     existing: Option<uuid::Uuid>,
     fresh: R,
+    seen: &Seen,
     merge: impl FnOnce(R, R) -> R,
 ) -> Result<R> {
+    let table = crate::store::table_of::<R>();
     let Some(id) = existing else {
+        if !seen.0.is_empty() {
+            seen.check(table, None, &to_values(table, &fresh)?)?;
+        }
         w.insert(&fresh)?;
         return Ok(fresh);
     };
@@ -289,8 +441,16 @@ fn save<R: crate::store::Record>(
         table: R::TABLE.to_owned(),
         id: id.to_string(),
     })?;
+    let stored = if seen.0.is_empty() {
+        None
+    } else {
+        Some(to_values(table, &old)?)
+    };
     let merged = merge(old, fresh);
     debug_assert_eq!(merged.id(), id, "merge keeps the stored row's id");
+    if let Some(stored) = stored {
+        seen.check(table, Some(&stored), &to_values(table, &merged)?)?;
+    }
     w.update(&merged)?;
     Ok(merged)
 }
@@ -327,7 +487,6 @@ pub fn set_leaf_fate(
     fate: LeafFate,
     on: chrono::NaiveDate,
 ) -> Result<()> {
-    use rusqlite::types::Value;
     let schema = crate::tables::get("tagged_leaf")
         .ok_or_else(|| Error::Invariant("no tagged_leaf table".into()))?;
     w.update_fields(
@@ -348,6 +507,9 @@ pub enum DamageEntry {
     Class(String),
     /// Percent leaf area removed.
     Percent(f64),
+    /// Looked at but not assessed (a cleared field): never 0 %, which says
+    /// "looked, no damage".
+    NotAssessed,
 }
 
 /// Score damage on a tagged leaf at a damage visit.
@@ -356,6 +518,18 @@ pub fn damage(
     visit: VisitId,
     leaf: LeafId,
     entry: DamageEntry,
+) -> Result<DamageRecord> {
+    damage_seen(w, visit, leaf, entry, &Seen::default())
+}
+
+/// [`damage`], refused with [`Error::Stale`] when the stored row moved since
+/// the person saw it (`seen`).
+pub fn damage_seen(
+    w: &mut Writer<'_>,
+    visit: VisitId,
+    leaf: LeafId,
+    entry: DamageEntry,
+    seen: &Seen,
 ) -> Result<DamageRecord> {
     expect_visit(w, visit, &[VisitKind::Damage], "damage_record")?;
     let (method, scale): (String, Option<ScaleId>) = w
@@ -377,6 +551,7 @@ pub fn damage(
         notes: None,
     };
     match (method.as_str(), entry, scale) {
+        (_, DamageEntry::NotAssessed, _) => {}
         ("class", DamageEntry::Class(code), Some(scale)) => {
             row.damage_pct = Some(class_midpoint(w, scale, &code, "damage_record")?);
             row.class_code = Some(code);
@@ -402,10 +577,12 @@ pub fn damage(
             |r| r.get(0),
         )
         .optional()?;
-    save(w, existing.map(|id| id.0), row, |old, new| DamageRecord {
-        id: old.id,
-        notes: old.notes,
-        ..new
+    save(w, existing.map(|id| id.0), row, seen, |old, new| {
+        DamageRecord {
+            id: old.id,
+            notes: old.notes,
+            ..new
+        }
     })
 }
 

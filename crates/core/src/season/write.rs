@@ -3,7 +3,7 @@
 
 use chrono::{DateTime, NaiveDate, Utc};
 use rusqlite::types::Value;
-use serde::Serialize;
+use serde::{Deserialize, Serialize};
 use uuid::Uuid;
 
 use crate::model::{EnclosureId, Visit, VisitKind};
@@ -100,7 +100,7 @@ pub fn editable_table(name: &str) -> Result<&'static TableSchema> {
 }
 
 /// What an undo did to the record.
-#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize)]
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
 #[serde(rename_all = "snake_case")]
 pub enum UndoAction {
     /// A new record was taken back: it is deleted.
@@ -110,7 +110,7 @@ pub enum UndoAction {
 }
 
 /// What an undo did.
-#[derive(Debug, Clone, Serialize)]
+#[derive(Debug, Clone, Serialize, Deserialize)]
 pub struct Undone {
     /// Table.
     pub table: String,

@@ -58,6 +58,10 @@ pub const MIGRATIONS: &[Migration] = &[
         "0007_packed_inserts_swap",
         include_str!("../../../../schemas/sqlite/0007_packed_inserts_swap.sql"),
     ),
+    sql(
+        "0008_operation_receipt",
+        include_str!("../../../../schemas/sqlite/0008_operation_receipt.sql"),
+    ),
 ];
 
 /// The Rust step of 0006: every insert run of `change_log` (an `id` entry

@@ -31,7 +31,7 @@ pub use hlc::Hlc;
 pub use rows::{Projection, Record, from_values, to_values};
 pub use source::Source;
 pub(crate) use source::conn_of;
-pub use writer::Writer;
+pub use writer::{Receipt, Writer};
 
 use crate::tables::{self, TableSchema};
 use crate::{Error, Result};
@@ -129,6 +129,7 @@ impl Store {
         configure(&conn)?;
         migrations::migrate(&mut conn)?;
         let device_id = ensure_device(&mut conn, &clock)?;
+        drop_old_receipts(&conn, (clock)())?;
         Ok(Store {
             conn,
             path,
@@ -294,7 +295,7 @@ impl Store {
             |r| Ok((r.get(0)?, r.get(1)?)),
         )?;
         let hlc = Hlc(last_hlc).tick(now);
-        let mut writer = Writer::new(tx, &self.device_id, next_seq, hlc, &mut self.ids);
+        let mut writer = Writer::new(tx, &self.device_id, next_seq, hlc, &mut self.ids, now);
         let out = f(&mut writer)?;
         writer.commit()?;
         Ok(out)
@@ -510,6 +511,19 @@ fn expect_pragma(name: &'static str, expected: &str, actual: &str) -> Result<()>
             actual: actual.to_owned(),
         })
     }
+}
+
+/// How long the answer to a save with an operation id is kept: longer than
+/// any page keeps an entry waiting to be sent again.
+const RECEIPT_DAYS: i64 = 90;
+
+/// Drop the receipts of saves older than [`RECEIPT_DAYS`].
+fn drop_old_receipts(conn: &Connection, now_millis: i64) -> Result<()> {
+    conn.execute(
+        "DELETE FROM operation_receipt WHERE recorded_at < ?1",
+        [now_millis - RECEIPT_DAYS * 86_400_000],
+    )?;
+    Ok(())
 }
 
 /// Make this database's device identity once; return its id.

@@ -12,13 +12,26 @@ use super::{Hlc, IdMaker, Op, read_values, table_of};
 use crate::tables::{self, FieldType, TableSchema, display_value};
 use crate::{Error, Result};
 
+/// The answer kept for a save made with an operation id.
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub struct Receipt {
+    /// The operation that answered (`save_census`).
+    pub operation: String,
+    /// Its answer, as the caller got it (JSON).
+    pub response: String,
+}
+
 /// Writes inside one transaction; made by [`super::Store::write`].
 pub struct Writer<'a> {
     tx: Transaction<'a>,
     device_id: &'a str,
     next_seq: i64,
+    /// `next_seq` when the transaction began.
+    first_seq: i64,
     hlc: Hlc,
     ids: &'a mut IdMaker,
+    /// The store's clock when the transaction began, ms since the epoch.
+    now: i64,
 }
 
 impl std::fmt::Debug for Writer<'_> {
@@ -37,21 +50,29 @@ impl<'a> Writer<'a> {
         next_seq: i64,
         hlc: Hlc,
         ids: &'a mut IdMaker,
+        now: i64,
     ) -> Self {
         Writer {
             tx,
             device_id,
             next_seq,
+            first_seq: next_seq,
             hlc,
             ids,
+            now,
         }
     }
 
     pub(super) fn commit(self) -> Result<()> {
-        self.tx.execute(
-            "UPDATE local_device SET next_seq = ?1, hlc = ?2 WHERE singleton = 1",
-            params![self.next_seq, self.hlc.0],
-        )?;
+        // The clock and the sequence move only with a logged change: a
+        // transaction that wrote nothing (a repeated save answered from its
+        // receipt) leaves the device's bookkeeping as it was.
+        if self.next_seq != self.first_seq {
+            self.tx.execute(
+                "UPDATE local_device SET next_seq = ?1, hlc = ?2 WHERE singleton = 1",
+                params![self.next_seq, self.hlc.0],
+            )?;
+        }
         self.tx.commit()?;
         Ok(())
     }
@@ -75,6 +96,37 @@ impl<'a> Writer<'a> {
     /// as a [`Source`](super::Source), to see this transaction's writes).
     pub(crate) fn conn(&self) -> &rusqlite::Connection {
         &self.tx
+    }
+
+    /// The stored answer of a save made with operation id `op_id`, if one
+    /// was committed ([`Writer::keep_receipt`]).
+    pub fn receipt(&self, op_id: &str) -> Result<Option<Receipt>> {
+        use rusqlite::OptionalExtension;
+        Ok(self
+            .tx
+            .query_row(
+                "SELECT operation, response FROM operation_receipt WHERE op_id = ?1",
+                [op_id],
+                |r| {
+                    Ok(Receipt {
+                        operation: r.get(0)?,
+                        response: r.get(1)?,
+                    })
+                },
+            )
+            .optional()?)
+    }
+
+    /// Keep the answer of this transaction's save under its operation id, so
+    /// that the same request sent again is answered with it and writes
+    /// nothing. Committed with the save or not at all.
+    pub fn keep_receipt(&mut self, op_id: &str, operation: &str, response: &str) -> Result<()> {
+        self.tx.execute(
+            "INSERT INTO operation_receipt (op_id, operation, response, recorded_at) \
+             VALUES (?1, ?2, ?3, ?4)",
+            params![op_id, operation, response, self.now],
+        )?;
+        Ok(())
     }
 
     /// A live row of `R` by id, as this transaction sees it.
