@@ -1,9 +1,18 @@
 // The history of one record: every change made to it, oldest first, with the
-// value before and after (reached from "History" beside a saved entry).
+// value before and after, who (the device's name) and when (local time);
+// reached from "History" beside each row of the sheet and after a save.
 
 import { call } from './api.js';
 import { h, clear } from './dom.js';
 import { app, register, setWhere } from './shell.js';
+
+/** A UTC time as this tablet's local time, to the second (YYYY-MM-DD hh:mm:ss). */
+function localTime(utc) {
+  const t = new Date(utc);
+  if (Number.isNaN(t.getTime())) return utc;
+  const p = (n) => String(n).padStart(2, '0');
+  return `${t.getFullYear()}-${p(t.getMonth() + 1)}-${p(t.getDate())} ${p(t.getHours())}:${p(t.getMinutes())}:${p(t.getSeconds())}`;
+}
 
 export async function showHistory(main, table, id) {
   setWhere(app.overview?.site, 'History');
@@ -19,9 +28,11 @@ export async function showHistory(main, table, id) {
         h(
           'li',
           {},
-          h('span', { class: 'when' }, c.at.replace('T', ' ').replace('Z', ' UTC')),
+          h('span', { class: 'when' }, localTime(c.at)),
           ' ',
-          h('strong', {}, c.op === 'delete' ? 'deleted' : c.field),
+          h('span', { class: 'who' }, c.device),
+          ': ',
+          h('strong', {}, c.op === 'delete' ? 'deleted' : c.op === 'insert' && !c.field ? 'created' : (c.field ?? c.op)),
           c.op === 'delete' ? '' : ` ${c.old === null ? '(empty)' : c.old} → ${c.new === null ? '(empty)' : c.new}`,
         ),
       ),

@@ -3,7 +3,8 @@
 
 import { call } from './api.js';
 import { h, clear, fmt } from './dom.js';
-import { app, register, setWhere } from './shell.js';
+import { app, goToDay, register, setWhere } from './shell.js';
+import { safetyCard } from './safety.js';
 
 const STATE_TEXT = {
   not_started: 'To do',
@@ -13,21 +14,16 @@ const STATE_TEXT = {
   nothing_due: 'Nothing due',
 };
 
-let showAll = false;
+/** Which cages the route lists: 'due' (work today or flags), 'left' (still to do today), 'all'. */
+let showing = 'due';
+
+/** A cage with work left today. */
+const workLeft = (c) => ['not_started', 'partial', 'overdue'].includes(c.state) || (c.late ?? []).length > 0;
 
 function shiftDay(date, days) {
   const d = new Date(`${date}T12:00:00Z`);
   d.setUTCDate(d.getUTCDate() + days);
   return d.toISOString().slice(0, 10);
-}
-
-function goToDay(date) {
-  app.date = date;
-  app.overview = null;
-  const url = new URL(location.href);
-  url.searchParams.set('date', date);
-  history.replaceState(null, '', url);
-  dispatchEvent(new HashChangeEvent('hashchange'));
 }
 
 function cageButton(cage) {
@@ -45,7 +41,8 @@ function cageButton(cage) {
     late ? h('span', { class: 'cage-due' }, `Still to do: ${late}`) : null,
     missed ? h('span', { class: 'cage-late' }, `Missed: ${missed}`) : null,
     h('span', { class: 'cage-state' }, STATE_TEXT[cage.state]),
-    cage.open_flags ? h('span', { class: 'cage-flags' }, `⚑ ${cage.open_flags} open flag${cage.open_flags === 1 ? '' : 's'}`) : null,
+    // The stored flags still open, of the whole season (as the checks' season view lists them).
+    cage.open_flags ? h('span', { class: 'cage-flags' }, `⚑ ${cage.open_flags} open in the season`) : null,
   );
 }
 
@@ -64,30 +61,16 @@ function observerField() {
   return h('label', { class: 'observer' }, 'Observer ', input);
 }
 
-function safetyCard() {
-  return h(
-    'details',
-    { class: 'safety' },
-    h('summary', {}, 'Before you go out: safety and permits'),
-    h(
-      'ul',
-      {},
-      h('li', {}, 'Heat and sun: work in cooler hours, carry water, rest in shade. Keep the tablet out of direct sun.'),
-      h('li', {}, 'Ticks: long clothing; check yourself after every field day.'),
-      h('li', {}, 'Stakes and mesh are sharp: wear gloves, cap stakes, watch your step.'),
-      h('li', {}, 'Handle animals as your animal-care rules require; wash hands afterwards.'),
-      h('li', {}, 'Collecting, holding and releasing animals may need permits. Never release stocked animals outside the study area unless your permit allows it.'),
-      h('li', {}, 'Tell someone where you are. Local regulations and your institution’s rules come first.'),
-    ),
-  );
-}
-
-export async function showRoute(main) {
+export async function showRoute(main, shownAs) {
   const route = await call('route', { date: app.date || undefined });
+  if (shownAs !== undefined && shownAs !== app.view) return;
   const o = app.overview;
   setWhere(o.site, `Day ${route.day} (${route.date})`);
   const blocks = route.blocks
-    .map((b) => ({ ...b, cages: b.cages.filter((c) => showAll || c.state !== 'nothing_due' || c.open_flags > 0) }))
+    .map((b) => ({
+      ...b,
+      cages: b.cages.filter((c) => showing === 'all' || (showing === 'left' ? workLeft(c) : c.state !== 'nothing_due' || c.open_flags > 0)),
+    }))
     .filter((b) => b.cages.length > 0);
   const total = route.blocks.flatMap((b) => b.cages).filter((c) => c.state !== 'nothing_due');
   const done = total.filter((c) => c.state === 'done').length;
@@ -108,12 +91,13 @@ export async function showRoute(main) {
       observerField(),
       h('div', { class: 'row' }, h('a', { class: 'button', href: '#/review' }, "Day's-end checks"), h('a', { class: 'button', href: '#/results' }, 'Results')),
       h(
-        'label',
-        { class: 'toggle' },
-        h('input', { type: 'checkbox', checked: showAll, onchange: (e) => { showAll = e.target.checked; dispatchEvent(new HashChangeEvent('hashchange')); } }),
-        ' Show every cage',
+        'div',
+        { class: 'row filter', role: 'group', 'aria-label': 'Which cages' },
+        [['due', 'Due today'], ['left', 'Still due today'], ['all', 'Every cage']].map(([value, text]) =>
+          h('button', { class: showing === value ? 'small chosen' : 'small', 'aria-pressed': showing === value ? 'true' : 'false', dataset: { filter: value }, onclick: () => { showing = value; dispatchEvent(new HashChangeEvent('hashchange')); } }, text)),
       ),
     ),
+    showing === 'left' && !blocks.length ? h('p', { class: 'progress' }, 'Every cage due today is done.') : null,
     blocks.map((b) => h('section', { class: 'block' }, h('h2', {}, `Block ${b.code}`), h('div', { class: 'cages' }, b.cages.map(cageButton)))),
     safetyCard(),
   );

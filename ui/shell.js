@@ -1,11 +1,13 @@
 // fieldcage tablet UI: the shell every screen imports — the shared state
-// (`app`), where am I, the save feedback with undo and history, the hash
-// router the screens register with, and `bus`, an EventTarget for news that
-// other modules listen to. It imports no screen and runs nothing on import:
-// `start()` (called by main.js) wires it to the page.
+// (`app`), where am I, the save feedback with undo and history, the outbox
+// that keeps every save until fieldcage has it, the hash router the screens
+// register with, and `bus`, an EventTarget for news that other modules
+// listen to. It imports no screen and runs nothing on import: `start()`
+// (called by main.js) wires it to the page.
 //
 // Events on `bus`:
 //   'save-ended'  after every save, done or refused; detail { op, ok }.
+//   'delivered'   an entry that waited in the outbox has been saved.
 
 import { call, Problem } from './api.js';
 import { h, clear } from './dom.js';
@@ -15,10 +17,15 @@ export const bus = new EventTarget();
 export const app = {
   overview: null,
   observer: '',
+  /** Requests sent and not answered yet. */
   pending: 0,
   failed: false,
   /** The field day shown (YYYY-MM-DD); empty = the server's today. */
   date: '',
+  /** Fields typed into and not saved yet: key → save-now function. */
+  dirty: new Map(),
+  /** Counts up on every screen shown: a late answer for an old screen paints nothing. */
+  view: 0,
 };
 
 const byId = (id) => document.getElementById(id);
@@ -27,12 +34,145 @@ export function setWhere(...parts) {
   clear(byId('where'), parts.filter(Boolean).join(' · '));
 }
 
+// ---------------------------------------------------------------- outbox --
+
+const OUTBOX_KEY = 'fieldcage-outbox';
+
+/** Saves not yet confirmed by fieldcage, oldest first, as kept in localStorage. */
+function readOutbox() {
+  try {
+    const list = JSON.parse(localStorage.getItem(OUTBOX_KEY) ?? '[]');
+    return Array.isArray(list) ? list : [];
+  } catch {
+    return [];
+  }
+}
+
+function writeOutbox(list) {
+  localStorage.setItem(OUTBOX_KEY, JSON.stringify(list));
+}
+
+/** How many entries wait in the outbox. */
+export function waiting() {
+  return readOutbox().length;
+}
+
+/** A new operation id: a UUIDv7 (48-bit milliseconds, version 7, variant 10). */
+export function newOpId() {
+  const bytes = crypto.getRandomValues(new Uint8Array(16));
+  let ms = Date.now();
+  for (let i = 5; i >= 0; i--) {
+    bytes[i] = ms % 256;
+    ms = Math.floor(ms / 256);
+  }
+  bytes[6] = 0x70 | (bytes[6] & 0x0f);
+  bytes[8] = 0x80 | (bytes[8] & 0x3f);
+  const hex = [...bytes].map((b) => b.toString(16).padStart(2, '0')).join('');
+  return `${hex.slice(0, 8)}-${hex.slice(8, 12)}-${hex.slice(12, 16)}-${hex.slice(16, 20)}-${hex.slice(20)}`;
+}
+
+/** fieldcage did not answer (the local service is down or restarting). */
+function unreachable(e) {
+  return e instanceof Problem && e.code === 'offline';
+}
+
+let retryTimer = null;
+let retryDelay = 1000;
+let delivering = null;
+/**
+ * The screens waiting for an answer: op_id → { label, table, resolve,
+ * reject, queued }. `queued`: the screen was told the entry waits; its
+ * answer, when it comes, is news for the whole app ('delivered').
+ */
+const waiters = new Map();
+
+/**
+ * Send what waits in the outbox, oldest first, each with its own operation
+ * id (fieldcage answers a repeat with the first answer and writes nothing).
+ * Stops at the first entry fieldcage cannot be reached for, and tries again
+ * later; an entry fieldcage refuses is dropped and its refusal shown.
+ */
+export function deliver() {
+  if (delivering) return delivering;
+  delivering = (async () => {
+    clearTimeout(retryTimer);
+    let late = 0;
+    for (;;) {
+      const [entry] = readOutbox();
+      if (!entry) break;
+      let outcome;
+      app.pending += 1;
+      paintSaveState();
+      try {
+        outcome = { ok: true, result: await call(entry.op, entry.args) };
+      } catch (e) {
+        outcome = { ok: false, error: e };
+      } finally {
+        app.pending -= 1;
+      }
+      if (!outcome.ok && unreachable(outcome.error)) {
+        app.offline = true;
+        for (const w of waiters.values()) {
+          if (!w.queued) {
+            w.queued = true;
+            w.resolve({ queued: true });
+          }
+        }
+        retryTimer = setTimeout(deliver, retryDelay);
+        retryDelay = Math.min(retryDelay * 2, 15000);
+        break;
+      }
+      app.offline = false;
+      retryDelay = 1000;
+      writeOutbox(readOutbox().filter((e) => e.id !== entry.id));
+      const waiter = waiters.get(entry.id);
+      waiters.delete(entry.id);
+      const label = waiter?.label ?? entry.label ?? entry.op;
+      if (outcome.ok) {
+        app.failed = false;
+        if (waiter && !waiter.queued) {
+          const record = outcome.result.record ?? outcome.result;
+          if (waiter.label) toast(`Saved: ${label}`, waiter.table && record.id ? { table: waiter.table, id: record.id } : null);
+          waiter.resolve(outcome.result);
+        } else {
+          late += 1;
+          toast(`Saved (it had waited): ${label}`);
+        }
+      } else {
+        app.failed = true;
+        if (waiter && !waiter.queued) {
+          toast(problemText(outcome.error), null, true);
+          waiter.reject(outcome.error);
+        } else {
+          late += 1;
+          toast(`Not saved: ${label} — ${problemText(outcome.error)}`, null, true);
+        }
+      }
+      bus.dispatchEvent(new CustomEvent('save-ended', { detail: { op: entry.op, ok: outcome.ok } }));
+    }
+    delivering = null;
+    paintSaveState();
+    if (late) bus.dispatchEvent(new CustomEvent('delivered', { detail: { late } }));
+  })();
+  return delivering;
+}
+
+// ------------------------------------------------------------ save state --
+
 function paintSaveState() {
   const saveState = byId('save-state');
+  if (!saveState) return;
+  const queued = waiting();
   saveState.className = 'save-state';
-  if (app.pending > 0) {
+  if (queued > 0 && app.offline) {
+    saveState.classList.add('waiting');
+    saveState.textContent = `${queued} waiting: fieldcage not reachable, trying again`;
+  } else if (app.pending > 0 || queued > 0) {
     saveState.classList.add('saving');
-    saveState.textContent = 'Saving…';
+    saveState.textContent = queued > 1 ? `Saving ${queued}…` : 'Saving…';
+  } else if (app.dirty.size > 0) {
+    saveState.classList.add('dirty');
+    saveState.textContent = 'Not saved yet: finish the entry';
   } else if (app.failed) {
     saveState.classList.add('failed');
     saveState.textContent = 'Last entry NOT saved';
@@ -42,41 +182,54 @@ function paintSaveState() {
   }
 }
 
+/** A field was typed into (`saveNow` saves it) or is settled again (`null`). */
+export function markDirty(key, saveNow) {
+  if (saveNow) app.dirty.set(key, saveNow);
+  else app.dirty.delete(key);
+  paintSaveState();
+}
+
+/** Save every field typed into and not yet saved (before leaving a screen). */
+export function saveDirty() {
+  const pendingSaves = [...app.dirty.values()];
+  app.dirty.clear();
+  for (const saveNow of pendingSaves) saveNow();
+  paintSaveState();
+}
+
 /** Operations that take the field day, and those that record who observed. */
 const DATED = new Set(['start_visit', 'save_census', 'save_stocking', 'save_cover', 'save_damage', 'tag_leaf', 'set_leaf_fate']);
 const OBSERVED = new Set(['start_visit', 'save_census', 'save_stocking', 'save_cover', 'save_damage']);
+/** Operations that take an operation id (fieldcage answers a repeat from its receipt). */
+const ONCE = new Set([...DATED, 'update_visit', 'delete_record', 'undo']);
 
 /**
- * Save through the operation set. The entry is shown as saved only when the
- * promise resolves, which happens after the database commit.
+ * Save through the operation set. The entry goes into the outbox (kept in
+ * localStorage, so a reload keeps it) before it is sent; it is shown as
+ * saved only when fieldcage answers, which happens after the commit.
+ * Resolves with the answer; with `{ queued: true }` when fieldcage cannot be
+ * reached (the entry waits and is sent again with the same id); rejects with
+ * the refusal.
  */
-export async function save(op, args, { label, table } = {}) {
-  app.pending += 1;
-  paintSaveState();
-  let ok = false;
-  try {
-    const context = {};
-    if (DATED.has(op)) context.date = app.date || undefined;
-    if (OBSERVED.has(op)) context.observer = app.observer || undefined;
-    const result = await call(op, { ...context, ...args });
-    ok = true;
-    app.failed = false;
-    const record = result.record ?? result;
-    if (label) toast(`Saved: ${label}`, table && record.id ? { table, id: record.id } : null);
-    return result;
-  } catch (e) {
-    app.failed = true;
-    toast(problemText(e), null, true);
-    throw e;
-  } finally {
-    app.pending -= 1;
+export function save(op, args, { label, table, opId } = {}) {
+  const context = {};
+  if (DATED.has(op)) context.date = app.date || undefined;
+  if (OBSERVED.has(op)) context.observer = app.observer || undefined;
+  const id = opId ?? newOpId();
+  // The operations that keep an answer under the id send it (a repeat is
+  // answered once); the others are kept in the outbox under it all the same.
+  const entry = { id, op, args: { ...context, ...args, ...(ONCE.has(op) ? { op_id: id } : {}) }, label, at: new Date().toISOString() };
+  const list = readOutbox();
+  if (!list.some((e) => e.id === id)) writeOutbox([...list, entry]);
+  return new Promise((resolve, reject) => {
+    waiters.set(id, { label, table, resolve, reject, queued: false });
     paintSaveState();
-    bus.dispatchEvent(new CustomEvent('save-ended', { detail: { op, ok } }));
-  }
+    deliver();
+  });
 }
 
 export function problemText(e) {
-  if (e instanceof Problem) return e.field ? `${e.message}` : e.message;
+  if (e instanceof Problem) return e.message;
   return String(e);
 }
 
@@ -87,8 +240,9 @@ export function toast(text, record, isError = false) {
   clearTimeout(toastTimer);
   const actions = [];
   if (record) {
+    const undoId = newOpId();
     actions.push(
-      h('button', { class: 'link', onclick: () => undo(record) }, 'Undo'),
+      h('button', { class: 'link', onclick: (e) => { e.currentTarget.disabled = true; undo(record, undoId); } }, 'Undo'),
       h('button', { class: 'link', onclick: () => (location.hash = `#/history/${record.table}/${record.id}`) }, 'History'),
     );
   }
@@ -98,15 +252,18 @@ export function toast(text, record, isError = false) {
   toastTimer = setTimeout(() => notice.classList.remove('show'), isError ? 12000 : 8000);
 }
 
-async function undo(record) {
+async function undo(record, opId) {
   try {
-    const result = await save('undo', record);
+    const result = await save('undo', record, { opId });
+    if (result.queued) return;
     toast(result.action === 'deleted' ? 'Entry removed' : `Restored ${result.fields.join(', ')}`);
     await render();
   } catch {
     /* the toast already says why */
   }
 }
+
+// ---------------------------------------------------------------- router --
 
 /** The screens by view name: how each is shown and how many parts of the hash it takes. */
 const screens = new Map();
@@ -122,26 +279,74 @@ export function register(view, show, params = 0) {
   screens.set(view, { show, params });
 }
 
+/** Is the screen shown at `view` still the one on the page? */
+export function current(view) {
+  return view === app.view;
+}
+
+/** Working on another day than the server's today: say so, with a way back. */
+function paintDayBanner() {
+  const banner = byId('day-banner');
+  if (!banner) return;
+  const o = app.overview;
+  if (!o || !app.date || app.date === o.today) {
+    banner.hidden = true;
+    clear(banner);
+    return;
+  }
+  banner.hidden = false;
+  clear(
+    banner,
+    h('span', {}, `Working on ${o.date} (day ${o.day}), not today (${o.today}).`),
+    h('button', { class: 'small', id: 'back-to-today', onclick: () => goToDay('') }, 'Back to today'),
+  );
+}
+
+/** Show another field day ('' = today) on the screen now shown. */
+export function goToDay(date) {
+  saveDirty();
+  app.date = date;
+  app.overview = null;
+  const url = new URL(location.href);
+  if (date) url.searchParams.set('date', date);
+  else url.searchParams.delete('date');
+  history.replaceState(null, '', url);
+  return render();
+}
+
 /** Show the screen the hash names (the route when it names none). */
 export async function render() {
+  // A value typed and not yet saved is saved before the screen goes.
+  saveDirty();
+  const view = ++app.view;
   const main = byId('main');
-  const [, view, ...parts] = (location.hash || `#/${HOME}`).split('/');
+  const [, name, ...parts] = (location.hash || `#/${HOME}`).split('/');
   try {
     if (!app.overview) app.overview = await call('overview', { date: app.date || undefined });
-    const screen = screens.get(view);
+    if (view !== app.view) return;
+    paintDayBanner();
+    const screen = screens.get(name);
     const given = parts.slice(0, screen?.params ?? 0);
-    if (screen && given.length === screen.params && given.every(Boolean)) await screen.show(main, ...given);
-    else await screens.get(HOME)?.show(main);
+    if (screen && given.length === screen.params && given.every(Boolean)) await screen.show(main, ...given, view);
+    else await screens.get(HOME)?.show(main, view);
   } catch (e) {
-    clear(main, h('p', { class: 'problem', role: 'alert' }, problemText(e)));
+    if (view === app.view) clear(main, h('p', { class: 'problem', role: 'alert' }, problemText(e)));
   }
 }
 
-/** Wire the shell to the page: the observer and day asked for, the hash, the save state; then show. */
+/** Wire the shell to the page: the observer and day asked for, the hash, the save state, the outbox; then show. */
 export function start() {
   app.observer = localStorage.getItem('fieldcage-observer') ?? '';
   app.date = new URLSearchParams(location.search).get('date') ?? '';
   addEventListener('hashchange', render);
+  // Leaving or reloading with a value typed and not saved: save it first
+  // (into the outbox, which the next load sends).
+  addEventListener('pagehide', saveDirty);
+  addEventListener('beforeunload', saveDirty);
+  addEventListener('online', deliver);
+  bus.addEventListener('delivered', () => render());
   paintSaveState();
-  return render();
+  const shown = render();
+  if (waiting() > 0) deliver();
+  return shown;
 }

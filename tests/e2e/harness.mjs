@@ -3,7 +3,7 @@
 // chromium driven by playwright-core (never a browser a tool downloads).
 
 import { spawn, execFileSync } from 'node:child_process';
-import { mkdtempSync, readFileSync, writeFileSync, mkdirSync } from 'node:fs';
+import { mkdtempSync, readFileSync, readdirSync, writeFileSync, mkdirSync } from 'node:fs';
 import { tmpdir } from 'node:os';
 import { join, resolve, dirname } from 'node:path';
 import { fileURLToPath } from 'node:url';
@@ -40,8 +40,8 @@ export function initDatabase(definition, name) {
 let nextPort = 18_700 + (process.pid % 500);
 
 /** Start `fieldcage serve` on a database; resolves once it answers. */
-export async function startServer(db, { today, demo = false, syncEvery } = {}) {
-  const port = nextPort++;
+export async function startServer(db, { today, demo = false, syncEvery, port: samePort } = {}) {
+  const port = samePort ?? nextPort++;
   const args = ['serve', '--db', db, '--port', String(port)];
   if (today) args.push('--today', today);
   if (demo) args.push('--demo');
@@ -97,4 +97,49 @@ export async function api(url, op, args = {}) {
   const body = await r.json();
   if (!r.ok) throw new Error(`${op}: ${r.status} ${JSON.stringify(body)}`);
   return body;
+}
+
+/** One CSV text as rows of objects by header (RFC 4180 quoting). */
+export function parseCsv(text) {
+  const rows = [];
+  let row = [];
+  let field = '';
+  let quoted = false;
+  for (let i = 0; i < text.length; i++) {
+    const c = text[i];
+    if (quoted) {
+      if (c === '"' && text[i + 1] === '"') {
+        field += '"';
+        i++;
+      } else if (c === '"') quoted = false;
+      else field += c;
+    } else if (c === '"') quoted = true;
+    else if (c === ',') {
+      row.push(field);
+      field = '';
+    } else if (c === '\n' || c === '\r') {
+      if (c === '\r' && text[i + 1] === '\n') i++;
+      row.push(field);
+      rows.push(row);
+      row = [];
+      field = '';
+    } else field += c;
+  }
+  if (field !== '' || row.length) {
+    row.push(field);
+    rows.push(row);
+  }
+  const [header, ...body] = rows;
+  return body.map((r) => Object.fromEntries(header.map((name, i) => [name, r[i] ?? ''])));
+}
+
+/** What is stored: `fieldcage export` of the database, every table as rows. */
+export function exported(db) {
+  const out = mkdtempSync(join(tmpdir(), 'fieldcage-e2e-export-'));
+  execFileSync(BIN, ['export', '--db', db, '--out', out], { stdio: 'pipe' });
+  const tables = {};
+  for (const file of readdirSync(out).filter((f) => f.endsWith('.csv'))) {
+    tables[file.replace(/\.csv$/, '')] = parseCsv(readFileSync(join(out, file), 'utf8'));
+  }
+  return tables;
 }

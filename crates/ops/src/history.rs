@@ -23,11 +23,19 @@ impl Service {
         let mut entries =
             fieldcage_core::store::log::row_entries(&*store, &req.table, &req.id.to_string())?;
         entries.sort_by(|a, b| (a.hlc, &a.device_id, a.seq).cmp(&(b.hlc, &b.device_id, b.seq)));
+        let mut names: std::collections::HashMap<String, String> = Default::default();
+        for e in &entries {
+            if !names.contains_key(&e.device_id) {
+                let name = fieldcage_core::sync::device_label(&*store, &e.device_id)?;
+                names.insert(e.device_id.clone(), name);
+            }
+        }
         Ok(entries
             .into_iter()
             .map(|e| {
                 let hlc = fieldcage_core::store::Hlc(e.hlc);
                 Change {
+                    device: names.get(&e.device_id).cloned().unwrap_or_default(),
                     device_id: e.device_id,
                     seq: e.seq,
                     at: DateTime::from_timestamp_millis(hlc.millis())
@@ -70,6 +78,9 @@ pub struct RecordRef {
 pub struct Change {
     /// Device that made it.
     pub device_id: String,
+    /// That device's name (who made the change: each tablet is named for
+    /// its crew in the settings).
+    pub device: String,
     /// Its sequence number there.
     pub seq: i64,
     /// When (UTC, from the hybrid logical clock).

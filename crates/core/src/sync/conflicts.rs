@@ -281,6 +281,18 @@ fn field_set_by(
     version_of(conn, me, local_name, row_id, e)
 }
 
+/// A device's name as people know it: this device's own name, the name
+/// another device sent with its change-sets, else "device <id>".
+pub fn device_label(source: &impl store::Source, device: &str) -> Result<String> {
+    let conn = store::conn_of(source);
+    let (me, local): (String, String) = conn.query_row(
+        "SELECT device_id, name FROM local_device WHERE singleton = 1",
+        [],
+        |r| Ok((r.get(0)?, r.get(1)?)),
+    )?;
+    device_name(conn, &me, &local, device)
+}
+
 fn device_name(conn: &Connection, me: &str, local_name: &str, device: &str) -> Result<String> {
     if device == me {
         return Ok(local_name.to_owned());

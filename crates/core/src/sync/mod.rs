@@ -44,7 +44,8 @@ use rusqlite::{Connection, OptionalExtension, params};
 use uuid::Uuid;
 
 pub use conflicts::{
-    Conflict, ConflictChoice, ConflictKind, Version, conflicts, describe_record, resolve_conflict,
+    Conflict, ConflictChoice, ConflictKind, Version, conflicts, describe_record, device_label,
+    resolve_conflict,
 };
 pub use target::{check_target, save_target, saved_target};
 
