@@ -129,6 +129,9 @@ test('the tablet app keeps a census and a cover value across a relaunch', async 
     await s.until(SAVED, 'the census to be saved');
     await s.run('document.querySelector(".notice").classList.remove("show"); return true;');
     await s.until(`return document.querySelector('.census-row[data-taxon="BEET"] input[name=alive]')?.value === '2';`, 'the redraw');
+    // Day 21 has no cover survey due: recording one is an explicit choice.
+    await s.click('#unscheduled-cover');
+    await s.find('.cover-row[data-target="SED1"] input');
     await s.run(ENTER, ['.cover-row[data-target="SED1"] input', '12.5']);
     await s.until(SAVED, 'the cover value to be saved');
     await s.until(`return document.querySelector('.cover-row[data-target="SED1"] small')?.textContent === '12.5 %';`, 'the cover redraw');
