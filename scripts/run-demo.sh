@@ -2,7 +2,9 @@
 # Builds fieldcage and serves the invented demo season: creates
 # demo-run/demo.db afresh, prints the cage layout, runs the day's-end checks,
 # exports the tidy tables to demo-run/export/, then serves the tablet UI at
-# http://127.0.0.1:8088/ on day 21 of the demo season (Ctrl-C to stop).
+# http://127.0.0.1:8088/ on day 21 of the demo season, as the season stood that
+# mid-morning (demo-run/field-day.db: half of the day's cages still due, nothing
+# recorded after it), so a newcomer can practise (Ctrl-C to stop).
 # Installs what it needs first.
 set -euo pipefail
 cd "$(dirname "$0")/.."
@@ -41,5 +43,5 @@ say "day's-end checks over the whole season (the demo's planted problems; exit 1
 say "exporting the tidy tables to demo-run/export/"
 "$bin" export --db demo-run/demo.db --out demo-run/export
 
-say "serving the tablet UI on day 21 of the demo season (open the address below; Ctrl-C to stop)"
-exec "$bin" serve --db demo-run/demo.db --port "${PORT:-8088}" --today 2026-06-01
+say "serving the tablet UI on day 21 of the demo season, as it stood at 09:45 that day: cages still due (open the address below; Ctrl-C to stop)"
+exec "$bin" serve --db demo-run/field-day.db --demo --port "${PORT:-8088}" --today 2026-06-01

@@ -124,3 +124,41 @@ fn shipped_demo_tables_match_a_fresh_build() {
         );
     }
 }
+
+/// Issue 15: the demo opened on a field day stands as it stood that
+/// mid-morning: cages still due, nothing dated after it, and so no "in the
+/// future" flag (the decision: the demo stops at its today).
+#[test]
+fn regression_15_the_demo_on_its_today_has_cages_still_due_and_nothing_later() {
+    let tmp = Temp::new();
+    let day21 = chrono::NaiveDate::from_ymd_opt(2026, 6, 1).unwrap();
+    let store = fieldcage_core::demo::open_or_build(&tmp.path("as-of.db"), Some(day21)).unwrap();
+    let (h, m) = fieldcage_core::demo::AS_OF_TIME;
+    let cutoff = day21.and_hms_opt(h, m, 0).unwrap();
+    let visits = store.list::<Visit>().unwrap();
+    assert!(visits.iter().all(|v| v.visited_at.naive_local() <= cutoff));
+    assert!(
+        visits.iter().any(|v| v.visited_at.date_naive() == day21),
+        "part of the day is done"
+    );
+    let flags = store.list::<StoredFlag>().unwrap();
+    assert!(
+        flags.iter().all(|f| f.rule_id != "visits.future"),
+        "nothing in the future on its today"
+    );
+    // The route of that day: some cages done, some still to do.
+    let service = fieldcage_ops::Service::new(store).with_today(day21);
+    let route = service.route(Default::default()).unwrap();
+    let states: Vec<_> = route
+        .blocks
+        .iter()
+        .flat_map(|b| &b.cages)
+        .map(|c| c.state)
+        .collect();
+    use fieldcage_ops::CageState;
+    assert!(states.contains(&CageState::Done), "{states:?}");
+    assert!(states.contains(&CageState::NotStarted), "{states:?}");
+    // The whole season is still what `fieldcage demo` builds.
+    let full = fieldcage_core::demo::open_or_build(&tmp.path("full.db"), None).unwrap();
+    assert!(full.list::<Visit>().unwrap().len() > visits.len());
+}

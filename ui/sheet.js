@@ -267,6 +267,10 @@ function accountedFor(a, today) {
   const parts = [today.alive, today.dead, today.missing];
   if (parts.every((p) => p === null || p === undefined)) return h('p', { class: 'hint accounted' }, `To account for: ${a.at_risk} (alive + dead + missing)`);
   const sum = parts.reduce((s, p) => s + (p ?? 0), 0);
+  // Still entering: say how far it has got; warn once all three are in (or too many already).
+  if (parts.some((p) => p === null || p === undefined) && sum <= a.at_risk) {
+    return h('p', { class: 'hint accounted' }, `So far ${sum} of ${a.at_risk} accounted for (alive + dead + missing)`);
+  }
   const ok = sum === a.at_risk;
   return h('p', { class: ok ? 'hint accounted' : 'hint accounted warn', role: ok ? null : 'alert' },
     `Accounted for: ${today.alive ?? '–'} alive + ${today.dead ?? '–'} dead + ${today.missing ?? '–'} missing = ${sum} of ${a.at_risk}${ok ? ' ✓' : ' — does not add up: count again'}`);

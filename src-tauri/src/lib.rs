@@ -15,7 +15,7 @@ use std::path::PathBuf;
 use std::sync::Arc;
 
 use fieldcage_ops::auto_sync::AutoSync;
-use fieldcage_ops::core::{Store, demo};
+use fieldcage_ops::core::Store;
 use fieldcage_ops::launch::Launch;
 use fieldcage_ops::{Problem, ProblemCode, Service};
 use serde_json::Value;
@@ -67,7 +67,7 @@ pub fn open_service(
     options: &Options,
 ) -> fieldcage_ops::core::Result<Service> {
     let store = if options.launch.demo {
-        demo::open_or_build(db)?
+        options.launch.open_demo(db)?
     } else {
         Store::open(db)?
     };

@@ -313,3 +313,59 @@ test('the back button and a past day lead to working screens with the day shown'
     await server.stop();
   }
 });
+
+test('the sheet has what a field day needs: removals, notes, accounting, cover only when due, history, safety', async () => {
+  // Day 21 of the demo definition: census and damage due, no cover survey.
+  const db = initDatabase(definitionWithCover('percent'), 'field-day-needs');
+  const server = await startServer(db, { today: '2026-06-01' });
+  const page = await tablet(server.url);
+  try {
+    const favicon = await fetch(`${server.url}favicon.svg`);
+    assert.equal(favicon.status, 200, 'a favicon, no 404 on every load');
+    const cage = await cageOf(server.url, 'S');
+    await openSheet(page, server.url, cage);
+    // Cover fields only on cover-survey days; an unscheduled survey is a choice.
+    assert.equal(await page.locator('.cover-row').count(), 0);
+    await page.locator('#unscheduled-cover').click();
+    await page.locator('.cover-row').first().waitFor();
+    // Stock, then count: 10 stocked, 12 accounted for warns at once.
+    await page.locator('button.stock[data-taxon="SLUG"]').click();
+    await allSaved(page);
+    const slug = page.locator('.census-row[data-taxon="SLUG"]');
+    await page.goto(`${server.url}?date=2026-06-04#/cage/${cage.enclosure_id}`);
+    await page.locator('#census').waitFor();
+    await enter(page, slug.locator('input[name=alive]'), '9');
+    await enter(page, slug.locator('input[name=dead]'), '2');
+    await enter(page, slug.locator('input[name=missing]'), '1');
+    assert.match(await slug.locator('.accounted').textContent(), /12 of 10 — does not add up/);
+    await enter(page, slug.locator('input.note'), 'one found under the mesh edge');
+    // A removal needs a reason; then it is stored with it.
+    await page.locator('details.other summary').click();
+    const form = page.locator('.other-stocking');
+    await form.locator('select[name=kind]').selectOption('removal');
+    await form.locator('input[name=count]').fill('1');
+    await form.locator('button').click();
+    await form.locator('.field-problem').waitFor();
+    await form.locator('input[name=reason]').fill('escaped through a torn seam, taken out');
+    await form.locator('button').click();
+    await allSaved(page);
+    await screenshot(page, 'tired-field-day-needs');
+    const t = exported(db);
+    const removal = t.stocking_event.filter((e) => e.kind === 'removal');
+    assert.deepEqual(removal.map((e) => [e.count, e.notes]), [['1', 'escaped through a torn seam, taken out']]);
+    assert.deepEqual(t.census.map((c) => c.notes), ['one found under the mesh edge']);
+    // History from the row: who (the device's name) and when.
+    await slug.locator('a.history-link').click();
+    await page.locator('ol.history li').first().waitFor();
+    const first = await page.locator('ol.history li').first().textContent();
+    assert.match(first, /device-|tablet/);
+    assert.match(first, /\d{4}-\d{2}-\d{2} \d{2}:\d{2}:\d{2}/);
+    // The safety card is on the sheet too.
+    await page.goBack();
+    await page.locator('#census').waitFor();
+    assert.equal(await page.locator('details.safety').count(), 1);
+  } finally {
+    await page.close();
+    await server.stop();
+  }
+});

@@ -274,7 +274,9 @@ fn run(cli: Cli) -> anyhow::Result<ExitCode> {
             launch,
         } => {
             let store = if launch.demo {
-                demo::open_or_build(&db).with_context(|| format!("opening {}", db.display()))?
+                launch
+                    .open_demo(&db)
+                    .with_context(|| format!("opening {}", db.display()))?
             } else {
                 existing_database(&db)?
             };

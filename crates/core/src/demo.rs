@@ -57,13 +57,33 @@ pub const CONFIRMATION_NOTE: &str = "The slug was really there: it came in under
 /// (the crew lead's day's-end work), so that the demo holds flags of every
 /// status the data allow.
 pub fn build(store: &mut Store) -> Result<Vec<PlantedProblem>> {
+    build_as_of(store, None)
+}
+
+/// The time of a field day up to which [`build_as_of`] records: mid-morning,
+/// when the crew is half-way round (the cages visited after it are still due).
+pub const AS_OF_TIME: (u32, u32) = (9, 45);
+
+/// [`build`] as the season stood on `as_of` at [`AS_OF_TIME`] (local): every
+/// visit made by then is recorded, none after it, so a crew opening the demo
+/// on that day finds cages still due and nothing dated in the future. `None`
+/// (or a day after the season) builds the whole season. The checks run as of
+/// the end of that day (or of the season).
+pub fn build_as_of(store: &mut Store, as_of: Option<NaiveDate>) -> Result<Vec<PlantedProblem>> {
     let def = definition()?;
     store.use_seeded_ids(RECORD_SEED, start_millis(&def));
     setup::init(store, &def, LAYOUT_SEED)?;
-    let season = Season::load(store, &def)?;
+    let mut season = Season::load(store, &def)?;
+    let end = check_day(&def);
+    let as_of = as_of.filter(|d| *d < end);
+    season.until = as_of.and_then(|d| {
+        d.and_hms_opt(AS_OF_TIME.0, AS_OF_TIME.1, 0)?
+            .and_local_timezone(season.offset)
+            .single()
+    });
     let problems = season.plan_problems();
     store.write(|w| season.record(w, &problems))?;
-    let report = checks::run(store, &checks::Scope::Season, check_day(&def))?;
+    let report = checks::run(store, &checks::Scope::Season, as_of.unwrap_or(end))?;
     if let Some(flag) = report
         .flags
         .iter()
@@ -75,9 +95,10 @@ pub fn build(store: &mut Store) -> Result<Vec<PlantedProblem>> {
 }
 
 /// Open the database at `path`, building the demo season into it when it holds
-/// no experiment yet (a new file). Used by `fieldcage serve --demo` and the
-/// tablet app's `--demo`.
-pub fn open_or_build(path: &Path) -> Result<Store> {
+/// no experiment yet (a new file) — as it stood on `as_of` ([`build_as_of`]).
+/// Used by `fieldcage serve --demo` and the tablet app's `--demo`, which open
+/// it on their field day.
+pub fn open_or_build(path: &Path, as_of: Option<NaiveDate>) -> Result<Store> {
     let mut store = Store::open(path)?;
     let experiments: i64 = store.conn().query_row(
         "SELECT count(*) FROM experiment WHERE deleted = 0",
@@ -85,7 +106,7 @@ pub fn open_or_build(path: &Path) -> Result<Store> {
         |r| r.get(0),
     )?;
     if experiments == 0 {
-        build(&mut store)?;
+        build_as_of(&mut store, as_of)?;
     }
     Ok(store)
 }
@@ -131,6 +152,8 @@ struct Season {
     taxa: HashMap<String, TaxonId>,
     plans: HashMap<(String, String), StockingPlan>,
     schedule: Vec<(VisitKind, i64)>,
+    /// Record only the visits made by then (`None`: all).
+    until: Option<DateTime<FixedOffset>>,
 }
 
 /// What one planted problem does to the records.
@@ -200,6 +223,7 @@ impl Season {
             taxa,
             plans,
             schedule: def.schedule.iter().map(|(k, d, _)| (*k, *d)).collect(),
+            until: None,
         })
     }
 
@@ -369,6 +393,13 @@ impl Season {
                 }
                 let plant = self.problem(problems, cage, day);
                 for (kind, _) in self.schedule.iter().filter(|(_, d)| *d == day) {
+                    // Not yet made at the time the demo stands at.
+                    if self
+                        .until
+                        .is_some_and(|until| self.at(day, cage, 0) > until)
+                    {
+                        continue;
+                    }
                     match kind {
                         VisitKind::Stocking => {
                             let v = visit(w, VisitKind::Stocking, day, 0, Some(observer))?;

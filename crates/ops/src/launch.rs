@@ -31,6 +31,19 @@ pub struct Launch {
     pub sync_every: SyncEvery,
 }
 
+impl Launch {
+    /// Open the database at `path` for `--demo`: the demo season is built
+    /// into it when it holds none, as it stood on the field day the app opens
+    /// on (`--today`; [`fieldcage_core::demo::build_as_of`]), so that day has
+    /// cages still due and nothing dated after it.
+    pub fn open_demo(
+        &self,
+        path: &std::path::Path,
+    ) -> fieldcage_core::Result<fieldcage_core::Store> {
+        fieldcage_core::demo::open_or_build(path, self.today)
+    }
+}
+
 impl Default for Launch {
     fn default() -> Self {
         Launch {
