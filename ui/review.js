@@ -10,12 +10,13 @@ const STATUS = { open: 'Open', fixed: 'Fixed ✓', confirmed: 'Confirmed ✓' };
 let wholeSeason = false;
 
 function flagCard(flag, cageIds, rerun) {
-  const note = h('textarea', { rows: 2, 'aria-label': `Note for ${flag.rule_id} at ${flag.cage}`, placeholder: 'Why the data are right as recorded' });
+  const note = h('textarea', { rows: 2, 'aria-label': `Note for this flag at ${flag.cage}`, placeholder: 'Why the data are right as recorded' });
   const open = flag.status === 'open';
   return h(
     'li',
     { class: `flag sev-${flag.severity} status-${flag.status}`, dataset: { rule: flag.rule_id, cage: flag.cage, id: flag.id } },
-    h('div', { class: 'flag-head' }, h('span', { class: 'sev' }, SEVERITY[flag.severity]), h('code', {}, flag.rule_id), h('span', {}, `Day ${flag.day} · ${flag.date}`), h('span', { class: 'status' }, STATUS[flag.status])),
+    // The rule's id is for the analyst (in the export and the API), not the crew's screen.
+    h('div', { class: 'flag-head' }, h('span', { class: 'sev' }, SEVERITY[flag.severity]), h('span', {}, `Day ${flag.day} · ${flag.date}`), h('span', { class: 'status' }, STATUS[flag.status])),
     h('p', { class: 'message' }, flag.message),
     h('p', { class: 'fix' }, `Fix: ${flag.fix}`),
     flag.note ? h('p', { class: 'note' }, `Note: ${flag.note}`) : null,
@@ -29,7 +30,7 @@ function flagCard(flag, cageIds, rerun) {
             class: 'confirm',
             onclick: async () => {
               try {
-                await save('confirm_flag', { flag_id: flag.id, note: note.value }, { label: `${flag.rule_id} confirmed` });
+                await save('confirm_flag', { flag_id: flag.id, note: note.value }, { label: `flag at ${flag.cage} confirmed` });
                 await rerun();
               } catch {
                 /* the toast says why */

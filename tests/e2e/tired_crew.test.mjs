@@ -223,6 +223,36 @@ test('clearing a field stores "not assessed", never 0, and a chosen class can be
   }
 });
 
+test('clearing a damage percent stores "not assessed", and a chosen cover class can be cleared', async () => {
+  // Class cover (Daubenmire 1959 classes) and percent damage on one database.
+  const definition = definitionWithCover('class').replace('method = "class"\nscale = "dirzo-dominguez"', 'method = "percent"');
+  assert.ok(definition.includes('[damage]\ncode = "leaf-classes"\nmethod = "percent"'), 'the damage section is now percent');
+  const db = initDatabase(definition, 'clearing-percent');
+  const server = await startServer(db, { today: TODAY });
+  const page = await tablet(server.url);
+  try {
+    const cage = await cageOf(server.url, 'S');
+    await openSheet(page, server.url, cage);
+    const grass = page.locator('.cover-row[data-target="GRA1"]');
+    await grass.locator('button.class', { hasText: /^3/ }).click();
+    await allSaved(page);
+    await grass.locator('button.class.chosen').click();
+    await allSaved(page);
+    await page.locator('.tag-form button').click();
+    await allSaved(page);
+    const leaf = page.locator('.leaf-row').first().locator('input');
+    await enter(page, leaf, '12');
+    await enter(page, leaf, '');
+    await screenshot(page, 'tired-cleared-percent');
+    const t = exported(db);
+    assert.deepEqual(t.cover_record.map((c) => [c.class_code, c.cover_pct]), [['', '']]);
+    assert.deepEqual(t.damage_record.map((d) => [d.value_pct, d.damage_pct]), [['', '']], 'cleared is empty, never 0 %');
+  } finally {
+    await page.close();
+    await server.stop();
+  }
+});
+
 test('a reload with an entry typed and not finished loses nothing', async () => {
   const { db, server } = await fieldDay('reload');
   const page = await tablet(server.url);
