@@ -9,7 +9,7 @@
 
 import { call } from './api.js';
 import { h, clear, fmt } from './dom.js';
-import { app, current, markDirty, newOpId, register, save, setWhere, toast } from './shell.js';
+import { app, current, markDirty, newOpId, register, save, setWhere, toast, whileRedrawing } from './shell.js';
 import { safetyCard } from './safety.js';
 
 let sheet = null;
@@ -18,7 +18,11 @@ let view = 0;
 /** An unscheduled cover survey asked for on this sheet (cover fields shown). */
 let coverAskedFor = false;
 
-async function reload() {
+function reload() {
+  return whileRedrawing(redraw());
+}
+
+async function redraw() {
   const shown = view;
   const next = await call('sheet', { enclosure_id: sheet.enclosure_id, date: app.date || undefined });
   if (!current(shown)) return; // another screen is shown now: paint nothing

@@ -80,8 +80,8 @@ let retryTimer = null;
 let retryDelay = 1000;
 let delivering = null;
 /**
- * The screens waiting for an answer: op_id → { label, table, resolve,
- * reject, queued }. `queued`: the screen was told the entry waits; its
+ * The screens waiting for an answer: entry id → { entry, label, table,
+ * resolve, reject, queued }. `queued`: the screen was told the entry waits; its
  * answer, when it comes, is news for the whole app ('delivered').
  */
 const waiters = new Map();
@@ -150,9 +150,31 @@ export function deliver() {
       }
       bus.dispatchEvent(new CustomEvent('save-ended', { detail: { op: entry.op, ok: outcome.ok } }));
     }
+    // Another tab on this device shares the outbox and may have sent one of
+    // this tab's entries: ask again for its answer (an operation with an id
+    // is answered from its receipt and writes nothing).
+    if (!app.offline) {
+      const kept = new Set(readOutbox().map((e) => e.id));
+      for (const [id, w] of waiters) {
+        if (w.queued || kept.has(id)) continue;
+        waiters.delete(id);
+        if (!ONCE.has(w.entry.op)) {
+          w.resolve({});
+          continue;
+        }
+        try {
+          w.resolve(await call(w.entry.op, w.entry.args));
+        } catch (e) {
+          toast(problemText(e), null, true);
+          w.reject(e);
+        }
+      }
+    }
     delivering = null;
     paintSaveState();
     if (late) bus.dispatchEvent(new CustomEvent('delivered', { detail: { late } }));
+    // An entry saved while this round was finishing: send it now.
+    if (!app.offline && readOutbox().length > 0) deliver();
   })();
   return delivering;
 }
@@ -179,6 +201,21 @@ function paintSaveState() {
   } else {
     saveState.classList.add('saved');
     saveState.textContent = 'All saved ✓';
+  }
+}
+
+/**
+ * Count `work` (a redraw after a save) as not yet settled: the header says
+ * "All saved" only once the screen shows what is stored.
+ */
+export async function whileRedrawing(work) {
+  app.pending += 1;
+  paintSaveState();
+  try {
+    return await work;
+  } finally {
+    app.pending -= 1;
+    paintSaveState();
   }
 }
 
@@ -222,7 +259,7 @@ export function save(op, args, { label, table, opId } = {}) {
   const list = readOutbox();
   if (!list.some((e) => e.id === id)) writeOutbox([...list, entry]);
   return new Promise((resolve, reject) => {
-    waiters.set(id, { label, table, resolve, reject, queued: false });
+    waiters.set(id, { entry, label, table, resolve, reject, queued: false });
     paintSaveState();
     deliver();
   });

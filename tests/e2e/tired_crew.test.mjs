@@ -367,7 +367,8 @@ test('the sheet has what a field day needs: removals, notes, accounting, cover o
     await enter(page, slug.locator('input[name=alive]'), '9');
     await enter(page, slug.locator('input[name=dead]'), '2');
     await enter(page, slug.locator('input[name=missing]'), '1');
-    assert.match(await slug.locator('.accounted').textContent(), /12 of 10 — does not add up/);
+    // 9 + 2 + 1 = 12 of the 10 stocked: the line warns (waits for the redraw).
+    await slug.locator('.accounted.warn', { hasText: /12 of 10 — does not add up/ }).waitFor();
     await enter(page, slug.locator('input.note'), 'one found under the mesh edge');
     // A removal needs a reason; then it is stored with it.
     await page.locator('details.other summary').click();
