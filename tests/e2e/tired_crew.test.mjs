@@ -33,6 +33,23 @@ async function tablet(url) {
   return page;
 }
 
+/**
+ * Run `work` on a new database and its server (the demo definition with
+ * percent cover unless another is given) with a tablet page open; closes
+ * both afterwards.
+ */
+async function onFieldDay(name, work, { definition = definitionWithCover('percent'), today = TODAY } = {}) {
+  const db = initDatabase(definition, name);
+  const server = await startServer(db, { today });
+  const page = await tablet(server.url);
+  try {
+    await work({ db, server, page });
+  } finally {
+    await page.close();
+    await server.stop();
+  }
+}
+
 /** The id of the first cage of a treatment. */
 async function cageOf(url, treatment) {
   const route = await api(url, 'route', {});
@@ -71,9 +88,7 @@ async function enter(page, locator, text) {
 const rowsOf = (tables, table, filter = () => true) => tables[table].filter(filter);
 
 test('double taps on every action button make one record each', async () => {
-  const { db, server } = await fieldDay('double-taps');
-  const page = await tablet(server.url);
-  try {
+  await onFieldDay('double-taps', async ({ db, server, page }) => {
     const cage = await cageOf(server.url, 'SB');
     await openSheet(page, server.url, cage);
     const taxa = Object.fromEntries((await api(server.url, 'sheet', { enclosure_id: cage.enclosure_id })).animals.map((a) => [a.taxon.code, a.taxon.id]));
@@ -105,10 +120,7 @@ test('double taps on every action button make one record each', async () => {
     assert.ok(leaves.length <= 2, `at most one leaf per tap that was not a repeat: ${leaves.length}`);
     assert.equal(rowsOf(t, 'damage_record').length, 0, 'no tap landed on a leaf row and scored it');
     assert.equal(rowsOf(t, 'visit', (v) => v.kind === 'census' && v.completed === 'true').length, 1);
-  } finally {
-    await page.close();
-    await server.stop();
-  }
+  });
 });
 
 test('two tabs on one cage never lose an update: the stale save is refused and shows both values', async () => {
@@ -154,9 +166,7 @@ test('two tabs on one cage never lose an update: the stale save is refused and s
 });
 
 test('letters, decimals, 450 % and negative numbers are refused at the field; what is stored stays', async () => {
-  const { db, server } = await fieldDay('strict');
-  const page = await tablet(server.url);
-  try {
+  await onFieldDay('strict', async ({ db, server, page }) => {
     const cage = await cageOf(server.url, 'S');
     await openSheet(page, server.url, cage);
     const slug = page.locator('.census-row[data-taxon="SLUG"]');
@@ -186,16 +196,11 @@ test('letters, decimals, 450 % and negative numbers are refused at the field; wh
     await enter(page, slug.locator('input[name=dead]'), '2');
     t = exported(db);
     assert.deepEqual(t.census.map((c) => c.dead), ['2']);
-  } finally {
-    await page.close();
-    await server.stop();
-  }
+  });
 });
 
 test('clearing a field stores "not assessed", never 0, and a chosen class can be cleared', async () => {
-  const { db, server } = await fieldDay('clearing');
-  const page = await tablet(server.url);
-  try {
+  await onFieldDay('clearing', async ({ db, server, page }) => {
     const cage = await cageOf(server.url, 'S');
     await openSheet(page, server.url, cage);
     const grass = page.locator('.cover-row[data-target="GRA1"] input');
@@ -217,20 +222,14 @@ test('clearing a field stores "not assessed", never 0, and a chosen class can be
     assert.deepEqual(t.cover_record.map((c) => [c.value_pct, c.cover_pct]), [['', '']]);
     assert.deepEqual(t.census.map((c) => c.alive), ['']);
     assert.deepEqual(t.damage_record.map((d) => [d.class_code, d.damage_pct]), [['', '']]);
-  } finally {
-    await page.close();
-    await server.stop();
-  }
+  });
 });
 
 test('clearing a damage percent stores "not assessed", and a chosen cover class can be cleared', async () => {
   // Class cover (Daubenmire 1959 classes) and percent damage on one database.
   const definition = definitionWithCover('class').replace('method = "class"\nscale = "dirzo-dominguez"', 'method = "percent"');
   assert.ok(definition.includes('[damage]\ncode = "leaf-classes"\nmethod = "percent"'), 'the damage section is now percent');
-  const db = initDatabase(definition, 'clearing-percent');
-  const server = await startServer(db, { today: TODAY });
-  const page = await tablet(server.url);
-  try {
+  await onFieldDay('clearing-percent', async ({ db, server, page }) => {
     const cage = await cageOf(server.url, 'S');
     await openSheet(page, server.url, cage);
     const grass = page.locator('.cover-row[data-target="GRA1"]');
@@ -247,16 +246,11 @@ test('clearing a damage percent stores "not assessed", and a chosen cover class 
     const t = exported(db);
     assert.deepEqual(t.cover_record.map((c) => [c.class_code, c.cover_pct]), [['', '']]);
     assert.deepEqual(t.damage_record.map((d) => [d.value_pct, d.damage_pct]), [['', '']], 'cleared is empty, never 0 %');
-  } finally {
-    await page.close();
-    await server.stop();
-  }
+  }, { definition });
 });
 
 test('a reload with an entry typed and not finished loses nothing', async () => {
-  const { db, server } = await fieldDay('reload');
-  const page = await tablet(server.url);
-  try {
+  await onFieldDay('reload', async ({ db, server, page }) => {
     const cage = await cageOf(server.url, 'S');
     await openSheet(page, server.url, cage);
     const alive = page.locator('.census-row[data-taxon="SLUG"] input[name=alive]');
@@ -269,10 +263,7 @@ test('a reload with an entry typed and not finished loses nothing', async () => 
     await page.waitForFunction(() => document.querySelector('.census-row[data-taxon="SLUG"] input[name=alive]').value === '9');
     await screenshot(page, 'tired-reload');
     assert.deepEqual(exported(db).census.map((c) => c.alive), ['9']);
-  } finally {
-    await page.close();
-    await server.stop();
-  }
+  });
 });
 
 test('the service stopped and started again mid-entry: the outbox delivers, exactly once', async () => {
@@ -308,9 +299,7 @@ test('the service stopped and started again mid-entry: the outbox delivers, exac
 });
 
 test('the back button and a past day lead to working screens with the day shown', async () => {
-  const { db, server } = await fieldDay('navigation');
-  const page = await tablet(server.url);
-  try {
+  await onFieldDay('navigation', async ({ db, server, page }) => {
     const cage = await cageOf(server.url, 'S');
     await page.locator(`a.cage[data-label="${cage.label}"]`).click();
     await page.locator('#census').waitFor();
@@ -338,18 +327,12 @@ test('the back button and a past day lead to working screens with the day shown'
     await page.locator('.day').filter({ hasText: 'Day 14' }).waitFor();
     assert.equal(await banner.isHidden(), true);
     assert.doesNotMatch(page.url(), /date=/);
-  } finally {
-    await page.close();
-    await server.stop();
-  }
+  });
 });
 
 test('the sheet has what a field day needs: removals, notes, accounting, cover only when due, history, safety', async () => {
   // Day 21 of the demo definition: census and damage due, no cover survey.
-  const db = initDatabase(definitionWithCover('percent'), 'field-day-needs');
-  const server = await startServer(db, { today: '2026-06-01' });
-  const page = await tablet(server.url);
-  try {
+  await onFieldDay('field-day-needs', async ({ db, server, page }) => {
     const favicon = await fetch(`${server.url}favicon.svg`);
     assert.equal(favicon.status, 200, 'a favicon, no 404 on every load');
     const cage = await cageOf(server.url, 'S');
@@ -395,8 +378,5 @@ test('the sheet has what a field day needs: removals, notes, accounting, cover o
     await page.goBack();
     await page.locator('#census').waitFor();
     assert.equal(await page.locator('details.safety').count(), 1);
-  } finally {
-    await page.close();
-    await server.stop();
-  }
+  }, { today: '2026-06-01' });
 });
