@@ -10,6 +10,9 @@
 
 import { test, after } from 'node:test';
 import assert from 'node:assert/strict';
+import { mkdtempSync } from 'node:fs';
+import { tmpdir } from 'node:os';
+import { join } from 'node:path';
 import { api, definitionWithCover, exported, initDatabase, launchBrowser, screenshot, startServer } from './harness.mjs';
 
 // Day 14 of the demo schedule: cover and damage due (demo_data/definition.toml).
@@ -379,4 +382,31 @@ test('the sheet has what a field day needs: removals, notes, accounting, cover o
     await page.locator('#census').waitFor();
     assert.equal(await page.locator('details.safety').count(), 1);
   }, { today: '2026-06-01' });
+});
+
+test('on the demo field day the route lists what is still due and "Next cage due" leads there', async () => {
+  // The demo as the run command opens it: day 21 at 09:45, cages still due.
+  const db = join(mkdtempSync(join(tmpdir(), 'fieldcage-e2e-demo-day-')), 'field-day.db');
+  const server = await startServer(db, { demo: true, today: '2026-06-01' });
+  const page = await tablet(server.url);
+  try {
+    const cages = (await api(server.url, 'route', {})).blocks.flatMap((b) => b.cages);
+    const left = cages.filter((c) => c.state !== 'done' && c.state !== 'nothing_due');
+    assert.ok(left.length > 0 && left.length < cages.length, `some cages done, some due: ${left.length} of ${cages.length}`);
+    await page.locator('button[data-filter="left"]').click();
+    await page.locator('button[data-filter="left"][aria-pressed="true"]').waitFor();
+    const shown = await page.locator('a.cage').evaluateAll((as) => as.map((a) => a.dataset.label));
+    assert.deepEqual(shown, left.map((c) => c.label), 'the filter lists exactly the cages with work left');
+    // From a finished cage, "Next cage due" opens one with work left.
+    const done = cages.find((c) => c.state === 'done');
+    await openSheet(page, server.url, done);
+    await page.locator('button.next-cage').click();
+    await page.waitForFunction((id) => !location.hash.endsWith(id), done.enclosure_id);
+    await page.locator('#census').waitFor();
+    const opened = page.url().split('#/cage/')[1];
+    assert.ok(left.some((c) => c.enclosure_id === opened), `opened ${opened}`);
+  } finally {
+    await page.close();
+    await server.stop();
+  }
 });
