@@ -164,6 +164,22 @@ function doneMark(text, attrs = {}) {
   return h('button', { class: 'done-action', disabled: true, ...attrs }, text);
 }
 
+/**
+ * The class buttons of a scale and a "Clear" button at the row's end (not
+ * assessed). A second tap on the chosen class keeps it (it never clears:
+ * a double tap must not undo the first), and every button keeps its place.
+ */
+function classButtons(classes, chosenCode, onChoose, onClear, { disabled = false, label = '' } = {}) {
+  return h('div', { class: 'classes' },
+    classes.map((k) => {
+      const chosen = chosenCode === k.code;
+      const content = [h('strong', {}, k.code), h('small', {}, fmt.range(k))];
+      const attrs = { class: chosen ? 'class chosen' : 'class', 'aria-pressed': chosen ? 'true' : 'false', disabled };
+      return chosen || disabled ? h('button', attrs, content) : actionButton(content, (opId) => onChoose(k.code, opId), attrs);
+    }),
+    actionButton('Clear', onClear, { class: 'class clear', disabled: disabled || !chosenCode, 'aria-label': `${label} clear: not assessed`.trim() }));
+}
+
 function header() {
   const t = sheet.treatment;
   const stocked = sheet.animals
@@ -362,13 +378,9 @@ function coverSection() {
         attrs: { 'aria-label': `${t.code} percent` },
       });
     } else if (c.method === 'class') {
-      // A tap on the chosen class clears it (not assessed).
-      control = h('div', { class: 'classes' }, c.classes.map((k) => {
-        const chosen = rec?.class_code === k.code;
-        return actionButton([h('strong', {}, k.code), h('small', {}, fmt.range(k))],
-          (opId) => saveCover(t, rec, chosen ? {} : { class_code: k.code }, chosen ? 'cleared' : `class ${k.code}`, null, opId),
-          { class: chosen ? 'class chosen' : 'class', 'aria-pressed': chosen ? 'true' : 'false', title: chosen ? 'Tap again to clear' : null });
-      }));
+      control = classButtons(c.classes, rec?.class_code,
+        (code, opId) => saveCover(t, rec, { class_code: code }, `class ${code}`, null, opId),
+        (opId) => saveCover(t, rec, {}, 'cleared', null, opId), { label: t.code });
     } else {
       const hits = rec?.pin_hits ?? 0;
       control = h('div', { class: 'counter' },
@@ -408,23 +420,22 @@ function damageSection() {
     const saveDamage = (value, label, where, opId) => saveAndReload('save_damage', { leaf_id: leaf.id, ...value, base: { damage_pct: today?.damage_pct ?? null } },
       { label: `${leaf.tag_label} damage ${label}`, table: 'damage_record', opId }, where);
     let control;
-    if (leaf.fate) control = h('p', { class: 'fate' }, `Leaf ${leaf.fate} on ${leaf.fate_on}`);
-    else if (d.method === 'class') {
-      control = h('div', { class: 'classes' }, d.classes.map((k) => {
-        const chosen = today?.class_code === k.code;
-        return actionButton([h('strong', {}, k.code), h('small', {}, fmt.range(k))],
-          (opId) => saveDamage(chosen ? {} : { class_code: k.code }, chosen ? 'cleared' : `class ${k.code}`, null, opId),
-          { class: chosen ? 'class chosen' : 'class', 'aria-pressed': chosen ? 'true' : 'false', title: chosen ? 'Tap again to clear' : null });
-      }));
+    if (d.method === 'class') {
+      // A leaf with a fate keeps its buttons, disabled, so nothing moves.
+      control = classButtons(d.classes, today?.class_code,
+        (code, opId) => saveDamage({ class_code: code }, `class ${code}`, null, opId),
+        (opId) => saveDamage({}, 'cleared', null, opId), { disabled: Boolean(leaf.fate), label: leaf.tag_label });
     } else {
       // Cleared = not assessed (never 0 %, which says "looked, no damage").
       control = numberField({
         key: `damage:${leaf.id}`, stored: today?.value_pct, label: `${leaf.tag_label} percent`, parse: parsePercent, decimal: true,
         onCommit: (v, input) => saveDamage(v === null ? {} : { percent: v }, v === null ? 'not assessed' : `${v} %`, input),
-        attrs: { 'aria-label': `${leaf.tag_label} percent` },
+        attrs: { 'aria-label': `${leaf.tag_label} percent`, disabled: Boolean(leaf.fate) },
       });
     }
-    const fateButtons = leaf.fate ? null : h('div', { class: 'row' },
+    const fateButtons = leaf.fate ? h('div', { class: 'row' },
+      h('p', { class: 'fate' }, `Leaf ${leaf.fate} on ${leaf.fate_on}`),
+      doneMark(leaf.fate === 'lost' ? 'Leaf lost ✓' : 'Replaced ✓', { class: 'small done-action' })) : h('div', { class: 'row' },
       actionButton('Leaf lost', (opId) => saveAndReload('set_leaf_fate', { leaf_id: leaf.id, fate: 'lost' }, { label: `${leaf.tag_label} lost`, table: 'tagged_leaf', opId }), { class: 'small' }),
       actionButton('Replaced', async (opId) => {
         const label = prompt(`Label of the new tag replacing ${leaf.tag_label} (same species: ${taxon_code}):`, freeLabel(`${leaf.tag_label}b`));

@@ -107,6 +107,14 @@ test('double taps on every action button make one record each', async () => {
     const tagSpot = await doubleTap(page, page.locator('.tag-form button'));
     await page.mouse.click(tagSpot.x, tagSpot.y);
     await allSaved(page);
+    // A class, twice: the second tap keeps it (it does not clear it); then
+    // "Leaf lost" twice on the first leaf: the second leaf is not touched.
+    const first = page.locator('.leaf-row').first();
+    const firstTag = await first.getAttribute('data-tag');
+    await doubleTap(page, first.locator('button.class', { hasText: /^2/ }));
+    const lostSpot = await doubleTap(page, first.locator('button', { hasText: 'Leaf lost' }));
+    await page.mouse.click(lostSpot.x, lostSpot.y);
+    await allSaved(page);
     // "Finish census", twice.
     await doubleTap(page, page.locator('.visit-row[data-kind="census"] button', { hasText: 'Finish' }));
     await screenshot(page, 'tired-double-taps');
@@ -121,7 +129,10 @@ test('double taps on every action button make one record each', async () => {
     const leaves = rowsOf(t, 'tagged_leaf');
     assert.equal(new Set(leaves.map((l) => l.tag_label)).size, leaves.length, 'no label twice');
     assert.ok(leaves.length <= 2, `at most one leaf per tap that was not a repeat: ${leaves.length}`);
-    assert.equal(rowsOf(t, 'damage_record').length, 0, 'no tap landed on a leaf row and scored it');
+    const scored = rowsOf(t, 'damage_record');
+    const firstLeaf = leaves.find((l) => l.tag_label === firstTag);
+    assert.deepEqual(scored.map((d) => [d.leaf_id, d.class_code]), [[firstLeaf.id, '2']], 'the first leaf scored once, class 2 kept');
+    assert.deepEqual(leaves.filter((l) => l.fate === 'lost').map((l) => l.id), [firstLeaf.id], 'one leaf lost, the next one untouched');
     assert.equal(rowsOf(t, 'visit', (v) => v.kind === 'census' && v.completed === 'true').length, 1);
   });
 });
@@ -218,7 +229,7 @@ test('clearing a field stores "not assessed", never 0, and a chosen class can be
     const leaf = page.locator('.leaf-row').first();
     await leaf.locator('button.class', { hasText: /^2/ }).click();
     await allSaved(page);
-    await leaf.locator('button.class.chosen').click();
+    await leaf.locator('button.clear').click();
     await allSaved(page);
     await screenshot(page, 'tired-cleared');
     const t = exported(db);
@@ -238,7 +249,7 @@ test('clearing a damage percent stores "not assessed", and a chosen cover class 
     const grass = page.locator('.cover-row[data-target="GRA1"]');
     await grass.locator('button.class', { hasText: /^3/ }).click();
     await allSaved(page);
-    await grass.locator('button.class.chosen').click();
+    await grass.locator('button.clear').click();
     await allSaved(page);
     await page.locator('.tag-form button').click();
     await allSaved(page);
