@@ -26,7 +26,7 @@ use crate::util::{Temp, data_snapshot, fast_temp, snapshot, store_with};
 /// reader could see something it must not.
 type Watch<'a> = Box<dyn Fn() + 'a>;
 
-/// A disk that fails its `fail_at`-th step (create, write, flush, rename,
+/// A disk that fails its `fail_at`-th step (create, write, flush, rename or link,
 /// folder flush; 1-based). A failing write first writes half of its bytes,
 /// as a disk that fills up does.
 struct FailingDisk<'a> {
@@ -98,6 +98,11 @@ impl Disk for FailingDisk<'_> {
     fn rename(&self, from: &Path, to: &Path) -> io::Result<()> {
         self.step("rename")?;
         OsDisk.rename(from, to)
+    }
+
+    fn link_new(&self, from: &Path, to: &Path) -> io::Result<()> {
+        self.step("link")?;
+        OsDisk.link_new(from, to)
     }
 
     fn sync_dir(&self, dir: &Path) -> io::Result<()> {

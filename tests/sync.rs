@@ -1408,3 +1408,127 @@ fn a_change_set_refused_at_commit_leaves_the_others_of_its_batch_applied() {
     assert!(again.applied.is_empty(), "{again}");
     assert!(again.skipped.iter().any(|s| s.file == bad), "{again}");
 }
+
+/// Issue 16: a change-set whose clock lies near the top of its range (a
+/// crafted file with a valid hash, or a tablet whose clock jumped decades
+/// ahead) used to wrap the receiver's clock negative, so that every later
+/// save failed ("CHECK constraint failed: hlc >= 0"). It is refused whole,
+/// naming the device and the value, and saves go on.
+#[test]
+fn regression_16_a_change_set_with_a_clock_off_the_end_is_refused_and_saves_go_on() {
+    let mut case = file_case();
+    let text = String::from_utf8(case.bytes.clone()).unwrap();
+    let body_end = text.rfind("sha256,").unwrap();
+    let far = (fieldcage_core::store::Hlc::MAX_MILLIS - 10) << 16;
+    let mut in_rows = false;
+    let body: String = text[..body_end]
+        .lines()
+        .map(|line| {
+            if line.starts_with("seq,hlc,") {
+                in_rows = true;
+                return line.to_owned();
+            }
+            match (in_rows, line.split_once(',')) {
+                (true, Some((seq, rest))) if seq.parse::<i64>().is_ok() => {
+                    let (_, after) = rest.split_once(',').unwrap();
+                    format!("{seq},{far},{after}")
+                }
+                _ => line.to_owned(),
+            }
+        })
+        .map(|l| l + "\n")
+        .collect();
+    assert!(
+        body.contains(&far.to_string()),
+        "the crafted file carries the clock"
+    );
+    let crafted = format!(
+        "{body}sha256,{}\n",
+        fieldcage_core::sync::changeset::sha256_hex(body.as_bytes())
+    );
+    fs::write(&case.sample, crafted).unwrap();
+    let reason = case.refused(&case.sample.clone(), SkipKind::Rejected);
+    assert!(reason.contains("more than five years"), "{reason}");
+    assert!(
+        reason.contains(&far.to_string()),
+        "names the value: {reason}"
+    );
+    // The observer's own saves still work.
+    let [v0, _] = Tiny::visits();
+    let [herb, _] = Tiny::taxa();
+    case.observer
+        .store
+        .write(|w| w.insert(&census(200, v0, herb, 3)))
+        .unwrap();
+}
+
+/// Issue 16: a copy of an own change-set damaged without changing its size
+/// (a flipped byte) was never written again, since only the size was
+/// compared: every receiver refused it while its writer saw nothing to do.
+#[test]
+fn regression_16_a_damaged_own_file_of_the_same_size_is_written_again() {
+    let tmp = fast_temp();
+    let target = target(&tmp);
+    let mut a = Device::tiny(&tmp, "a", SEASON_MILLIS);
+    a.sync(&target);
+    let file = own_files(&target, &a).pop().unwrap();
+    let good = fs::read(&file).unwrap();
+    let mut bad = good.clone();
+    let middle = bad.len() / 2;
+    bad[middle] ^= 0x20;
+    fs::write(&file, &bad).unwrap();
+    assert_eq!(fs::metadata(&file).unwrap().len(), good.len() as u64);
+    let r = a.sync(&target);
+    assert!(r.warnings.iter().any(|w| w.contains("damaged")), "{r}");
+    assert_eq!(
+        fs::read(&file).unwrap(),
+        good,
+        "written again, byte for byte"
+    );
+}
+
+/// Issue 16: two sync runs on one database at once (the server's automatic
+/// sync and `fieldcage sync`, or two CLI runs) used to corrupt the sync
+/// state, after which every sync was refused ("Another database is using
+/// this device's identity"). Two processes race here, round after round,
+/// with saves between the rounds: no run is refused, and a receiver ends
+/// with exactly the writer's data.
+#[test]
+fn regression_16_two_sync_processes_on_one_database_never_clash() {
+    let tmp = fast_temp();
+    let target = target(&tmp);
+    let mut a = Device::tiny(&tmp, "a", SEASON_MILLIS);
+    a.sync(&target);
+    let db = a.store.path().to_path_buf();
+    let [v0, _] = Tiny::visits();
+    let [herb, _] = Tiny::taxa();
+    let sync = || {
+        std::process::Command::new(env!("CARGO_BIN_EXE_fieldcage"))
+            .args(["sync", "--db"])
+            .arg(&db)
+            .arg("--target")
+            .arg(&target)
+            .output()
+            .unwrap()
+    };
+    a.store
+        .write(|w| w.insert(&census(300, v0, herb, 10)))
+        .unwrap();
+    let counted = CensusId(crate::util::fixed_id(300));
+    for round in 0..8u64 {
+        set_alive(&mut a, counted, round as i64);
+        let (first, second) = std::thread::scope(|s| {
+            let one = s.spawn(sync);
+            let two = s.spawn(sync);
+            (one.join().unwrap(), two.join().unwrap())
+        });
+        for out in [first, second] {
+            let said = String::from_utf8_lossy(&out.stderr);
+            assert!(out.status.success(), "round {round}: {said}");
+            assert!(!said.contains("identity"), "round {round}: {said}");
+        }
+    }
+    let mut b = Device::empty(&tmp, "b", SEASON_MILLIS);
+    b.sync(&target);
+    assert_eq!(data_snapshot(&b.store), data_snapshot(&a.store));
+}

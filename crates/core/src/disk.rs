@@ -44,6 +44,13 @@ pub trait Disk: std::fmt::Debug {
         fs::rename(from, to)
     }
 
+    /// Give `from` also the name `to`, failing with `AlreadyExists` when
+    /// that name exists: the no-replace step of [`Existing::Refuse`] (a hard
+    /// link is made or refused in one step, so two writers cannot both win).
+    fn link_new(&self, from: &Path, to: &Path) -> io::Result<()> {
+        fs::hard_link(from, to)
+    }
+
     /// Flush a folder's entries (the renames in it) to the disk. On systems
     /// other than Unix the rename is all there is.
     fn sync_dir(&self, dir: &Path) -> io::Result<()> {
@@ -116,9 +123,11 @@ pub fn write_atomically(
             disk.sync_file(&file)
                 .map_err(step("cannot flush its temporary file to disk"))
         })
-        .and_then(|()| {
-            disk.rename(&temp, &path)
-                .map_err(step("cannot rename its temporary file into place"))
+        .and_then(|()| match existing {
+            Existing::Replace => disk
+                .rename(&temp, &path)
+                .map_err(step("cannot rename its temporary file into place")),
+            Existing::Refuse => place_new(disk, &temp, &path),
         });
     if result.is_err() {
         // Best effort: the temporary name is skipped by every reader; the
@@ -126,6 +135,46 @@ pub fn write_atomically(
         let _ = disk.remove_file(&temp);
     }
     result.map(|()| path)
+}
+
+/// Put the written temporary file at `path` only if no file has that name:
+/// a hard link (made or refused in one step), then the temporary name goes.
+/// Where the file system has no hard links (a FAT-formatted stick), the
+/// name is checked and the file renamed: two writers racing there are kept
+/// apart by the sync lock of their database.
+fn place_new(disk: &dyn Disk, temp: &Path, path: &Path) -> Result<()> {
+    match disk.link_new(temp, path) {
+        Ok(()) => {
+            // The file stands under its name; the extra name is only clutter
+            // (readers skip names starting with `.`).
+            let _ = disk.remove_file(temp);
+            Ok(())
+        }
+        Err(e) if e.kind() == io::ErrorKind::AlreadyExists => Err(Error::State(format!(
+            "{}: already exists and is never overwritten",
+            path.display()
+        ))),
+        Err(e) if no_hard_links(&e) => {
+            if path.exists() {
+                return Err(Error::State(format!(
+                    "{}: already exists and is never overwritten",
+                    path.display()
+                )));
+            }
+            disk.rename(temp, path)
+                .map_err(|e| failed(path, "cannot rename its temporary file into place", e))
+        }
+        Err(e) => Err(failed(path, "cannot link its temporary file into place", e)),
+    }
+}
+
+/// The file system has no hard links (FAT and exFAT answer EPERM, others
+/// "not supported").
+fn no_hard_links(e: &io::Error) -> bool {
+    matches!(
+        e.kind(),
+        io::ErrorKind::Unsupported | io::ErrorKind::PermissionDenied
+    ) || matches!(e.raw_os_error(), Some(1 | 38 | 95))
 }
 
 /// Flush a folder's entries to the disk; the error names the folder.

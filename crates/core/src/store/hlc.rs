@@ -9,14 +9,21 @@
 const COUNTER_BITS: u32 = 16;
 const COUNTER_MASK: i64 = (1 << COUNTER_BITS) - 1;
 
+const MAX_MILLIS: i64 = Hlc::MAX_MILLIS;
+
 /// A hybrid-logical-clock timestamp.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, PartialOrd, Ord, Hash, Default)]
 pub struct Hlc(pub i64);
 
 impl Hlc {
+    /// The largest wall-clock part a timestamp can hold (about the year
+    /// 6429): the packed value stays a positive `i64`. Arithmetic on the
+    /// clock saturates here instead of wrapping round to a negative value.
+    pub const MAX_MILLIS: i64 = i64::MAX >> COUNTER_BITS;
+
     /// Build from wall milliseconds and a counter.
     pub fn new(millis: i64, counter: i64) -> Self {
-        Hlc((millis.max(0) << COUNTER_BITS) | (counter & COUNTER_MASK))
+        Hlc((millis.clamp(0, MAX_MILLIS) << COUNTER_BITS) | (counter & COUNTER_MASK))
     }
 
     /// Wall-clock part, milliseconds since the Unix epoch.
@@ -37,8 +44,10 @@ impl Hlc {
         } else if self.counter() < COUNTER_MASK {
             Hlc(self.0 + 1)
         } else {
-            // Counter exhausted within one millisecond: borrow the next one.
-            Hlc::new(self.millis() + 1, 0)
+            // Counter exhausted within one millisecond: borrow the next one
+            // (at the end of the range it stays there: the change-set reader
+            // refuses clocks anywhere near it, so a database never gets there).
+            Hlc::new(self.millis().saturating_add(1), 0)
         }
     }
 
@@ -66,6 +75,17 @@ mod tests {
         let t2 = t1.tick(10);
         assert!(t0 < t1 && t1 < t2);
         assert_eq!(t2.millis(), 5_000);
+    }
+
+    /// Issue 16: a clock near the top of its range used to wrap negative
+    /// ("CHECK constraint failed: hlc >= 0" on every later save).
+    #[test]
+    fn regression_16_the_clock_never_wraps_negative() {
+        let top = Hlc::new(MAX_MILLIS, COUNTER_MASK);
+        assert!(top.tick(0).0 >= 0);
+        assert!(Hlc::new(i64::MAX, 0).0 >= 0);
+        assert!(Hlc(0).receive(top, 0).0 >= 0);
+        assert_eq!(Hlc::new(i64::MAX, 0).millis(), MAX_MILLIS);
     }
 
     #[test]

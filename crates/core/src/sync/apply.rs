@@ -128,6 +128,18 @@ impl<'s> Batch<'s> {
     }
 }
 
+/// How far past the newest clock this device knows a change-set's clock may
+/// lie: five years. A tablet whose clock is a year or two off is merged (and
+/// its clock flagged); further is a wrong clock or a crafted file, refused
+/// whole before it can carry every later save towards the end of the clock's
+/// range.
+pub const CLOCK_WINDOW_MILLIS: i64 = 5 * 365 * 86_400_000;
+
+/// No fieldcage change-set is older than this (2026-01-01T00:00:00Z, before
+/// its first release): the newest clock a device knows is at least this,
+/// even on a tablet whose clock was reset to 1970.
+pub const NOT_BEFORE_MILLIS: i64 = 1_767_225_600_000;
+
 /// Apply `cs` inside the open transaction `tx` if it is ready.
 fn apply_within(
     tx: &rusqlite::Connection,
@@ -182,6 +194,22 @@ fn apply_within(
         [],
         |r| Ok((r.get(0)?, r.get(1)?)),
     )?;
+    // A clock far beyond anything held would push this device's clock with
+    // it, towards the end of its range: refused before anything is written.
+    let max_remote = cs.changes.iter().map(|c| c.hlc).max().unwrap_or(0);
+    let newest = now.max(Hlc(local_hlc).millis()).max(NOT_BEFORE_MILLIS);
+    if Hlc(max_remote).millis() > newest.saturating_add(CLOCK_WINDOW_MILLIS) {
+        return Err(refuse(format!(
+            "device {} stamped its changes with clock value {max_remote} ({}), more than \
+             five years after the newest clock here ({}): a clock that far ahead is a wrong clock \
+             or a crafted file, and would carry every later save with it, so nothing of the \
+             file is applied. Set that tablet's date and time right; its later changes wait \
+             for this one",
+            cs.device_id,
+            super::timestamp(Hlc(max_remote).millis()),
+            super::timestamp(newest),
+        )));
+    }
     for (device, seq) in &cs.seen {
         if *device == me {
             if *seq >= next_seq {
@@ -294,7 +322,6 @@ fn apply_within(
         .map_err(|e| refuse(format!("settling unique keys: {e}")))?;
     // The clock: never behind anything applied, so that a later local edit
     // always wins over what its author had seen.
-    let max_remote = cs.changes.iter().map(|c| c.hlc).max().unwrap_or(0);
     let hlc = Hlc(local_hlc).receive(Hlc(max_remote), now);
     sync_state::set_hlc(tx, hlc.0)?;
     let ahead =

@@ -212,6 +212,12 @@ pub fn read_bounded(path: &Path) -> Result<Vec<u8>> {
     Ok(bytes)
 }
 
+/// The content hash of change-set bytes whose trailer matches them (what
+/// [`ChangeSet::sha256`] holds once they are read), without parsing the rows.
+pub fn content_hash(bytes: &[u8]) -> Result<String, String> {
+    verify_trailer(bytes).map(|(_, sha)| sha)
+}
+
 /// Verify and parse change-set bytes; the error says what is wrong.
 pub fn decode(bytes: &[u8]) -> Result<ChangeSet, String> {
     let (body, sha256) = verify_trailer(bytes)?;

@@ -412,6 +412,51 @@ pub fn apply_changeset(
     )
 }
 
+/// The lock one sync run holds on its database: an OS file lock on
+/// `<database>.sync-lock` beside it, so that two runs in two processes never
+/// write and record change-sets at once (which used to leave the sync state
+/// claiming that another database used this device's identity). Released
+/// when dropped, and by the system when the process ends.
+#[derive(Debug)]
+pub struct SyncLock {
+    _file: fs::File,
+}
+
+impl SyncLock {
+    /// How long a second run waits for the first to finish.
+    pub const WAIT: std::time::Duration = std::time::Duration::from_secs(10);
+
+    /// Take the lock of the database at `db`, waiting up to [`Self::WAIT`].
+    pub fn take(db: &Path) -> Result<SyncLock> {
+        let mut name = db.as_os_str().to_owned();
+        name.push(".sync-lock");
+        let path = PathBuf::from(name);
+        let file = fs::OpenOptions::new()
+            .create(true)
+            .truncate(false)
+            .write(true)
+            .open(&path)
+            .map_err(|e| Error::io(&path, e))?;
+        let until = std::time::Instant::now() + Self::WAIT;
+        loop {
+            match file.try_lock() {
+                Ok(()) => return Ok(SyncLock { _file: file }),
+                Err(fs::TryLockError::WouldBlock) if std::time::Instant::now() < until => {
+                    std::thread::sleep(std::time::Duration::from_millis(50));
+                }
+                Err(fs::TryLockError::WouldBlock) => {
+                    return Err(Error::State(format!(
+                        "a sync of {} is already running (the automatic sync, another \
+                         `fieldcage sync` or the tablet app); try again when it has finished",
+                        db.display()
+                    )));
+                }
+                Err(fs::TryLockError::Error(e)) => return Err(Error::io(&path, e)),
+            }
+        }
+    }
+}
+
 /// One sync run with the default options.
 pub fn sync_once(store: &mut Store, target: &Path) -> Result<SyncReport> {
     sync_with(store, target, &SyncOptions::default())
@@ -433,6 +478,9 @@ pub fn sync_with_disk(
     options: &SyncOptions,
     disk: &dyn Disk,
 ) -> Result<SyncReport> {
+    // One sync run at a time on a database, whoever starts it (the server's
+    // automatic sync, `fieldcage sync`, the tablet app): held to the end.
+    let _lock = SyncLock::take(store.path())?;
     let started = timestamp(store.now_millis());
     if let TargetStatus::Unavailable(reason) = probe_target(target, disk) {
         return Err(Error::TargetUnavailable {
@@ -628,6 +676,14 @@ fn clash(path: &Path, what: &str) -> Error {
 }
 
 /// Step 2 and 3: check this device's folder, then write its new changes.
+/// Does the change-set at `path` read whole with the content hash `sha256`?
+fn file_holds(path: &Path, sha256: &str) -> bool {
+    changeset::read_bounded(path)
+        .ok()
+        .and_then(|bytes| changeset::content_hash(&bytes).ok())
+        .is_some_and(|sha| sha == sha256)
+}
+
 fn write_own(
     store: &mut Store,
     target: &Path,
@@ -653,7 +709,9 @@ fn write_own(
         let name = changeset::file_name(w.first);
         let path = dir.join(&name);
         let replace = match on_disk.remove(&name) {
-            Some(size) if size == w.size => continue,
+            // Compare the content, not the size: a damaged copy of the same
+            // size used to be left in place, refused by every receiver.
+            Some(size) if size == w.size && file_holds(&path, &w.sha256) => continue,
             Some(_) => {
                 if let Ok(cs) = changeset::read(&path)
                     && cs.device_id == me
