@@ -427,3 +427,64 @@ fn output_into_a_closed_pipe_ends_the_command_quietly() {
         out.status
     );
 }
+
+/// Issue 16: a tablet joins a crew in one step. `sync`, `device` and `serve`
+/// refuse a database that does not exist, so "start a tablet empty and let
+/// its first sync bring everything" had no command.
+#[test]
+fn regression_16_a_tablet_joins_a_crew_in_one_step() {
+    let tmp = Temp::new();
+    let dir = tmp.path("");
+    let def = crate::util::repo_root().join("demo_data/definition.toml");
+    let def = def.to_str().unwrap();
+    // On an empty folder: a database with its own identity, the folder
+    // saved, and a plain word that there is nothing to join yet.
+    let out = ok(&fieldcage(
+        &[
+            "join", "--db", "early.db", "--target", "crew", "--name", "Tablet 9",
+        ],
+        &dir,
+    ));
+    assert!(out.contains("holds no experiment yet"), "{out}");
+    let device = ok(&fieldcage(&["device", "--db", "early.db"], &dir));
+    assert!(device.contains("Tablet 9"), "{device}");
+    assert!(device.contains("sync target:"), "{device}");
+    assert!(
+        device.contains(&dir.join("crew").display().to_string()),
+        "{device}"
+    );
+    // A crew's folder: the first tablet sets up and syncs; the new one joins
+    // and holds the same layout, under its own identity.
+    ok(&fieldcage(
+        &["init", "--db", "first.db", def, "--seed", "5"],
+        &dir,
+    ));
+    ok(&fieldcage(
+        &["sync", "--db", "first.db", "--target", "crew"],
+        &dir,
+    ));
+    let out = ok(&fieldcage(
+        &[
+            "join", "--db", "third.db", "--target", "crew", "--name", "Tablet 3",
+        ],
+        &dir,
+    ));
+    assert!(out.contains("joined demo-meadow-2026 (24 cages)"), "{out}");
+    let layout = |db: &str| ok(&fieldcage(&["layout", "--db", db], &dir));
+    assert_eq!(layout("third.db"), layout("first.db"));
+    let id = |db: &str| {
+        let d = ok(&fieldcage(&["device", "--db", db], &dir));
+        d.lines()
+            .find(|l| l.starts_with("device id:"))
+            .unwrap()
+            .to_owned()
+    };
+    assert_ne!(id("third.db"), id("first.db"), "its own identity");
+    // The early tablet's next sync brings the experiment too.
+    ok(&fieldcage(&["sync", "--db", "early.db"], &dir));
+    assert_eq!(layout("early.db"), layout("first.db"));
+    // Joining into an existing file is refused and changes nothing.
+    let again = fieldcage(&["join", "--db", "third.db", "--target", "crew"], &dir);
+    assert!(!again.status.success());
+    assert!(String::from_utf8_lossy(&again.stderr).contains("already exists"));
+}

@@ -1,7 +1,7 @@
 //! The `fieldcage` command line: glue between the person at the keyboard and
 //! the library. Errors are mapped to exit codes here and nowhere else.
 
-use std::path::PathBuf;
+use std::path::{Path, PathBuf};
 use std::process::ExitCode;
 
 use anyhow::Context;
@@ -129,6 +129,20 @@ enum Command {
         #[arg(long)]
         target: Option<PathBuf>,
     },
+    /// Join a crew: make a new database with its own device identity, save
+    /// the shared folder as its sync target and bring the experiment and
+    /// every change from it.
+    Join {
+        /// The new database file (must not exist).
+        #[arg(long)]
+        db: PathBuf,
+        /// The crew's shared folder (a missing last folder is made).
+        #[arg(long)]
+        target: PathBuf,
+        /// This tablet's name, shown to the other devices.
+        #[arg(long)]
+        name: Option<String>,
+    },
     /// Show this device's identity and sync state; --name renames the device.
     Device {
         /// The database file.
@@ -181,6 +195,16 @@ fn main() -> ExitCode {
             ExitCode::from(2)
         }
     }
+}
+
+/// A new database joins the crew at `target`: named, the folder saved as its
+/// sync target, then the first sync.
+fn join(store: &mut Store, target: &Path, name: Option<&str>) -> anyhow::Result<sync::SyncReport> {
+    if let Some(name) = name {
+        store.set_device_name(name)?;
+    }
+    sync::save_target(store, &target.display().to_string())?;
+    Ok(sync::sync_once(store, target)?)
 }
 
 /// Refuse to build into a file that already exists: init and demo make new databases.
@@ -356,6 +380,38 @@ fn run(cli: Cli) -> anyhow::Result<ExitCode> {
             };
             let report = sync::sync_once(&mut store, &target)?;
             print!("{report}");
+        }
+        Command::Join { db, target, name } => {
+            let name = name.as_deref().map(Store::check_device_name).transpose()?;
+            let target = std::path::absolute(&target)
+                .with_context(|| format!("the folder {}", target.display()))?;
+            let mut store = new_database(&db)?;
+            let report = match join(&mut store, &target, name.as_deref()) {
+                Ok(report) => report,
+                Err(e) => {
+                    // Nothing half made: a new attempt starts from no file.
+                    drop(store);
+                    remove_database(&db);
+                    return Err(e);
+                }
+            };
+            print!("{report}");
+            match fieldcage_core::season::Frame::load_if_any(&store)? {
+                Some(frame) => println!(
+                    "joined {} ({} cages): {} is device {} ({}), syncing with {}",
+                    frame.experiment.code,
+                    frame.cages.len(),
+                    db.display(),
+                    store.device_id(),
+                    store.device_name()?,
+                    target.display()
+                ),
+                None => println!(
+                    "joined, but {} holds no experiment yet: set one up on the first tablet \
+                     (fieldcage init), sync it, then sync here again",
+                    target.display()
+                ),
+            }
         }
         Command::Device { db, name, target } => {
             let mut store = existing_database(&db)?;
