@@ -1293,8 +1293,11 @@ fn rows_left_referring_to_a_deleted_or_hidden_row_are_listed_and_settled() {
     assert_eq!(data_snapshot(&a.store), data_snapshot(&b.store));
 }
 
-/// Tablets set up with different seeds share no setup rows: sync keeps
-/// everything, lists the duplicates and says what went wrong.
+/// Tablets set up with different seeds hold two randomisations of one
+/// experiment. Issue 16: they used to be merged into one database with
+/// hundreds of duplicates and conflicts (a layout that mixes both); now the
+/// other tablet's files are refused whole, naming both seeds, and nothing
+/// of them is applied.
 #[test]
 fn tablets_set_up_with_different_seeds_are_told_so() {
     let tmp = Temp::new();
@@ -1304,11 +1307,77 @@ fn tablets_set_up_with_different_seeds_are_told_so() {
     let mut b = tmp.store("b.db");
     fieldcage_core::setup::init(&mut a, &def, 1).unwrap();
     fieldcage_core::setup::init(&mut b, &def, 2).unwrap();
+    let before = data_snapshot(&b);
     sync::sync_once(&mut a, &target).unwrap();
     let r = sync::sync_once(&mut b, &target).unwrap();
-    assert!(r.warnings.iter().any(|w| w.contains("same seed")), "{r}");
-    assert_eq!(crate::util::count(&b, "experiment"), 1, "one is shown");
-    assert!(r.open_conflicts > 24, "every cage at least: {r}");
+    let refused: Vec<_> = r
+        .skipped
+        .iter()
+        .filter(|s| s.kind == SkipKind::Rejected)
+        .collect();
+    assert_eq!(refused.len(), 1, "{r}");
+    let reason = &refused[0].reason;
+    assert!(
+        reason.contains("seed 1") && reason.contains("seed 2"),
+        "{reason}"
+    );
+    assert!(reason.contains("two randomisations"), "{reason}");
+    assert_eq!(crate::util::count(&b, "experiment"), 1);
+    assert_eq!(r.open_conflicts, 0, "{r}");
+    assert_eq!(
+        data_snapshot(&b),
+        before,
+        "nothing of the other setup applied"
+    );
+}
+
+/// Issue 16: a change-set of another experiment was merged instead of
+/// refused (its cages appeared in this experiment's blocks, 47 conflicts
+/// opened, and the export no longer imported). It is refused whole, naming
+/// both experiments.
+#[test]
+fn regression_16_a_change_set_of_another_experiment_is_refused() {
+    let tmp = Temp::new();
+    let target = target(&tmp);
+    let def = fieldcage_core::demo::definition().unwrap();
+    let text = std::fs::read_to_string(crate::util::repo_root().join("demo_data/definition.toml"))
+        .unwrap();
+    let other_text = text.replacen(
+        "code = \"demo-meadow-2026\"",
+        "code = \"other-site-2026\"",
+        1,
+    );
+    assert_ne!(other_text, text, "the demo definition has its code");
+    let other_path = tmp.path("other.toml");
+    std::fs::write(&other_path, other_text).unwrap();
+    let other = fieldcage_core::setup::definition::read(&other_path).unwrap();
+    let mut a = tmp.store("a.db");
+    let mut b = tmp.store("b.db");
+    fieldcage_core::setup::init(&mut a, &other, 5).unwrap();
+    fieldcage_core::setup::init(&mut b, &def, 5).unwrap();
+    let before = data_snapshot(&b);
+    sync::sync_once(&mut a, &target).unwrap();
+    let r = sync::sync_once(&mut b, &target).unwrap();
+    let refused: Vec<_> = r
+        .skipped
+        .iter()
+        .filter(|s| s.kind == SkipKind::Rejected)
+        .collect();
+    assert_eq!(refused.len(), 1, "{r}");
+    let reason = &refused[0].reason;
+    assert!(
+        reason.contains("other-site-2026") && reason.contains("demo-meadow-2026"),
+        "{reason}"
+    );
+    assert_eq!(
+        data_snapshot(&b),
+        before,
+        "nothing of the other experiment applied"
+    );
+    // A tablet joining empty takes the first experiment it meets.
+    let mut c = tmp.store("c.db");
+    sync::sync_once(&mut c, &target).unwrap();
+    assert_eq!(crate::util::count(&c, "experiment"), 1);
 }
 
 /// Change-sets ready together are applied in one transaction; one whose

@@ -38,8 +38,14 @@ fn check_decoded(decoded: std::result::Result<changeset::ChangeSet, String>) {
     for (i, change) in cs.changes.iter().enumerate() {
         assert_eq!(change.seq, cs.first_seq + i as i64);
     }
-    let (bytes, _) = changeset::encode(&cs.device_id, &cs.device_name, &cs.seen, &cs.changes)
-        .expect("an accepted change-set can be written again");
+    let (bytes, _) = changeset::encode_for(
+        cs.experiment.as_ref(),
+        &cs.device_id,
+        &cs.device_name,
+        &cs.seen,
+        &cs.changes,
+    )
+    .expect("an accepted change-set can be written again");
     let again = changeset::decode(&bytes).expect("a written change-set reads back");
     assert_eq!(
         changeset::ChangeSet {

@@ -159,6 +159,35 @@ fn apply_within(
             "holds this device's own changes; they are never applied again".into(),
         ));
     }
+    // One experiment per sync folder: a file of another experiment (or of
+    // another randomisation of this one) is refused whole.
+    if let Some(theirs) = &cs.experiment {
+        let mine = crate::store::first::<crate::model::Experiment>(tx)?
+            .map(|e| (e.id.to_string(), e.code, e.randomisation_seed));
+        if let Some((id, code, seed)) = mine
+            && id != theirs.id
+        {
+            let seed_text =
+                |s: Option<i64>| s.map_or("an unknown seed".to_owned(), |s| format!("seed {s}"));
+            return Err(refuse(if code == theirs.code {
+                format!(
+                    "belongs to experiment {code} set up with {}, but this database holds {code} \
+                     set up with {}: two randomisations of one experiment cannot be merged. Set \
+                     the other tablet up again with --seed {} (or let it join this crew with \
+                     fieldcage join)",
+                    seed_text(theirs.seed),
+                    seed_text(seed),
+                    seed.map_or("<the first tablet's seed>".to_owned(), |s| s.to_string()),
+                )
+            } else {
+                format!(
+                    "belongs to experiment {} ({}), but this database holds experiment {code} \
+                     ({id}): a sync folder serves one experiment; give each its own folder",
+                    theirs.code, theirs.id
+                )
+            }));
+        }
+    }
     let upto = applied_upto(tx, &cs.device_id)?;
     if cs.first_seq <= upto {
         let recorded: Option<(i64, String, String)> = tx

@@ -99,6 +99,23 @@ pub struct ChangeSet {
     pub changes: Vec<Change>,
     /// SHA-256 of the file before its trailer, lowercase hex.
     pub sha256: String,
+    /// The experiment its device held when it wrote the file (none for a
+    /// device that had none yet, and in files written before it was kept).
+    pub experiment: Option<Experiment>,
+}
+
+/// Which experiment a change-set belongs to, as its header says it: the
+/// experiment row's id (made from the definition and the randomisation
+/// seed), its code and its seed. A receiver that holds another experiment
+/// refuses the file.
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub struct Experiment {
+    /// The experiment row's id.
+    pub id: String,
+    /// Its code (from the definition).
+    pub code: String,
+    /// Its randomisation seed.
+    pub seed: Option<i64>,
 }
 
 impl ChangeSet {
@@ -140,6 +157,17 @@ pub fn encode(
     seen: &BTreeMap<String, i64>,
     changes: &[Change],
 ) -> Result<(Vec<u8>, String)> {
+    encode_for(None, device_id, device_name, seen, changes)
+}
+
+/// [`encode`] with the experiment the file belongs to in its header.
+pub fn encode_for(
+    experiment: Option<&Experiment>,
+    device_id: &str,
+    device_name: &str,
+    seen: &BTreeMap<String, i64>,
+    changes: &[Change],
+) -> Result<(Vec<u8>, String)> {
     let (Some(first), Some(last)) = (changes.first(), changes.last()) else {
         return Err(Error::Invariant(
             "a change-set needs at least one entry".into(),
@@ -151,7 +179,7 @@ pub fn encode(
         .terminator(csv::Terminator::Any(b'\n'))
         .from_writer(Vec::new());
     let csv_err = |e: csv::Error| Error::Invariant(format!("writing a change-set: {e}"));
-    w.write_record([
+    let mut header = vec![
         MAGIC.to_owned(),
         format!("version={}", format_version()),
         format!("device={device_id}"),
@@ -159,8 +187,15 @@ pub fn encode(
         format!("rows={}", changes.len()),
         format!("seen={}", seen_text.join(" ")),
         format!("name={device_name}"),
-    ])
-    .map_err(csv_err)?;
+    ];
+    if let Some(e) = experiment {
+        header.push(format!("experiment={}", e.id));
+        header.push(format!("experiment_code={}", e.code));
+        if let Some(seed) = e.seed {
+            header.push(format!("seed={seed}"));
+        }
+    }
+    w.write_record(&header).map_err(csv_err)?;
     w.write_record(&format().columns).map_err(csv_err)?;
     for c in changes {
         w.write_record([
@@ -267,6 +302,7 @@ pub fn decode(bytes: &[u8]) -> Result<ChangeSet, String> {
         seen: head.seen,
         changes,
         sha256,
+        experiment: head.experiment,
     })
 }
 
@@ -342,6 +378,7 @@ struct Header {
     last: i64,
     rows: i64,
     seen: BTreeMap<String, i64>,
+    experiment: Option<Experiment>,
 }
 
 fn parse_header(record: &csv::StringRecord) -> Result<Header, String> {
@@ -409,6 +446,30 @@ fn parse_header(record: &csv::StringRecord) -> Result<Header, String> {
     if name.chars().count() > 200 || name.chars().any(char::is_control) {
         return Err("line 1: name= is not a device name".to_owned());
     }
+    let experiment = match fields.get("experiment") {
+        None => None,
+        Some(id) => {
+            if Uuid::parse_str(id).is_err() {
+                return Err(format!("line 1: experiment {id:?} is not an experiment id"));
+            }
+            let code = get("experiment_code")?;
+            if code.is_empty() || code.chars().count() > 200 || code.chars().any(char::is_control) {
+                return Err("line 1: experiment_code= is not an experiment code".to_owned());
+            }
+            let seed = match fields.get("seed") {
+                None => None,
+                Some(s) => Some(
+                    s.parse::<i64>()
+                        .map_err(|_| "line 1: seed= is not a number".to_owned())?,
+                ),
+            };
+            Some(Experiment {
+                id: (*id).to_owned(),
+                code: code.to_owned(),
+                seed,
+            })
+        }
+    };
     Ok(Header {
         device: device.to_owned(),
         name: name.to_owned(),
@@ -416,6 +477,7 @@ fn parse_header(record: &csv::StringRecord) -> Result<Header, String> {
         last,
         rows,
         seen,
+        experiment,
     })
 }
 

@@ -661,7 +661,38 @@ fn own_changeset_bytes(
             "this database does not hold its own changes {first}-{last}"
         )));
     }
+    let seen = own_knowledge(conn, me, first)?;
+    changeset::encode_for(experiment_tag(conn)?.as_ref(), me, name, &seen, &changes)
+}
+
+/// [`own_changeset_bytes`] as the file was first written: with the
+/// experiment of this database, or without one (written before this
+/// database held an experiment, or before files carried it).
+fn own_changeset_bytes_as(
+    conn: &Connection,
+    me: &str,
+    name: &str,
+    first: i64,
+    last: i64,
+    sha256: &str,
+) -> Result<(Vec<u8>, String)> {
+    let tagged = own_changeset_bytes(conn, me, name, first, last)?;
+    if tagged.1 == sha256 {
+        return Ok(tagged);
+    }
+    let changes = own_changes(conn, me, first, last)?;
     changeset::encode(me, name, &own_knowledge(conn, me, first)?, &changes)
+}
+
+/// The experiment this database holds, as a change-set's header names it.
+fn experiment_tag(conn: &Connection) -> Result<Option<changeset::Experiment>> {
+    Ok(
+        crate::store::first::<crate::model::Experiment>(conn)?.map(|e| changeset::Experiment {
+            id: e.id.to_string(),
+            code: e.code,
+            seed: e.randomisation_seed,
+        }),
+    )
 }
 
 fn clash(path: &Path, what: &str) -> Error {
@@ -675,7 +706,6 @@ fn clash(path: &Path, what: &str) -> Error {
     ))
 }
 
-/// Step 2 and 3: check this device's folder, then write its new changes.
 /// Does the change-set at `path` read whole with the content hash `sha256`?
 fn file_holds(path: &Path, sha256: &str) -> bool {
     changeset::read_bounded(path)
@@ -684,6 +714,7 @@ fn file_holds(path: &Path, sha256: &str) -> bool {
         .is_some_and(|sha| sha == sha256)
 }
 
+/// Step 2 and 3: check this device's folder, then write its new changes.
 fn write_own(
     store: &mut Store,
     target: &Path,
@@ -728,7 +759,8 @@ fn write_own(
             }
             None => false,
         };
-        let (bytes, sha) = own_changeset_bytes(store.conn(), &me, &w.name, w.first, w.last)?;
+        let (bytes, sha) =
+            own_changeset_bytes_as(store.conn(), &me, &w.name, w.first, w.last, &w.sha256)?;
         if sha != w.sha256 {
             return Err(Error::Invariant(format!(
                 "{}: cannot be written again exactly (its content changed in this database)",
@@ -784,9 +816,16 @@ fn write_own(
         let expected = last_written(store.conn())? + 1;
         let ours = first == expected
             && cs.last_seq < next_seq
-            && own_changeset_bytes(store.conn(), &me, &cs.device_name, first, cs.last_seq)
-                .map(|(_, sha)| sha == cs.sha256)
-                .unwrap_or(false);
+            && own_changeset_bytes_as(
+                store.conn(),
+                &me,
+                &cs.device_name,
+                first,
+                cs.last_seq,
+                &cs.sha256,
+            )
+            .map(|(_, sha)| sha == cs.sha256)
+            .unwrap_or(false);
         if !ours {
             return Err(clash(
                 &path,
@@ -816,7 +855,8 @@ fn write_own(
             size,
         });
     }
-    // New changes.
+    // New changes, each file naming the experiment they belong to.
+    let tag = experiment_tag(store.conn())?;
     let from = last_written(store.conn())? + 1;
     let to = next_seq - 1;
     if from > to {
@@ -842,7 +882,7 @@ fn write_own(
             let (Some(first), Some(last)) = (piece.first(), piece.last()) else {
                 continue;
             };
-            let (bytes, sha) = changeset::encode(&me, &name, &seen, piece)?;
+            let (bytes, sha) = changeset::encode_for(tag.as_ref(), &me, &name, &seen, piece)?;
             let file = changeset::file_name(first.seq);
             let replace = damaged.contains(&file);
             if let Some(warning) = changeset::write_atomically(disk, &dir, &file, &bytes, replace)?
