@@ -20,6 +20,8 @@ export const app = {
   /** Requests sent and not answered yet. */
   pending: 0,
   failed: false,
+  /** The last attempt to send found fieldcage unreachable (the outbox waits). */
+  offline: false,
   /** The field day shown (YYYY-MM-DD); empty = the server's today. */
   date: '',
   /** Fields typed into and not saved yet: key → save-now function. */
