@@ -282,7 +282,7 @@ fn field_set_by(
 }
 
 /// A device's name as people know it: this device's own name, the name
-/// another device sent with its change-sets, else "device <id>".
+/// another device sent with its change-sets, else "device" and its id.
 pub fn device_label(source: &impl store::Source, device: &str) -> Result<String> {
     let conn = store::conn_of(source);
     let (me, local): (String, String) = conn.query_row(
