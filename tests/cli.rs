@@ -488,3 +488,67 @@ fn regression_16_a_tablet_joins_a_crew_in_one_step() {
     assert!(!again.status.success());
     assert!(String::from_utf8_lossy(&again.stderr).contains("already exists"));
 }
+
+/// Issue 16: `init` without `--seed` on a second tablet drew another layout
+/// (792 conflicts at the first sync). `init` now prints the seed it drew and
+/// the line for the other tablets; running that line gives a tablet that
+/// syncs with no conflict, and a `--seed` against the definition's own seed
+/// is refused before any file is made.
+#[test]
+fn regression_16_init_prints_the_line_that_sets_up_the_other_tablets() {
+    let tmp = Temp::new();
+    let dir = tmp.path("");
+    let def = crate::util::repo_root().join("demo_data/definition.toml");
+    let def = def.to_str().unwrap();
+    let out = ok(&fieldcage(&["init", "--db", "first.db", def], &dir));
+    let line = out
+        .lines()
+        .map(str::trim)
+        .find(|l| l.starts_with("fieldcage init --db TABLET.db"))
+        .unwrap_or_else(|| panic!("no line for the other tablets in {out}"));
+    let args: Vec<String> = line
+        .split_whitespace()
+        .skip(1)
+        .map(|a| {
+            if a == "TABLET.db" {
+                "second.db".into()
+            } else {
+                a.into()
+            }
+        })
+        .collect();
+    let args: Vec<&str> = args.iter().map(String::as_str).collect();
+    ok(&fieldcage(&args, &dir));
+    std::fs::create_dir(dir.join("crew")).unwrap();
+    for db in ["first.db", "second.db", "first.db"] {
+        let out = ok(&fieldcage(&["sync", "--db", db, "--target", "crew"], &dir));
+        assert!(out.contains("0 not applied; 0 conflict(s) open"), "{out}");
+    }
+    assert_eq!(
+        ok(&fieldcage(&["layout", "--db", "first.db"], &dir)),
+        ok(&fieldcage(&["layout", "--db", "second.db"], &dir))
+    );
+
+    // A definition with its own seed and another one given: refused, no file.
+    let text = std::fs::read_to_string(def)
+        .unwrap()
+        .replace("\n[experiment]\n", "\n[experiment]\nseed = 31\n");
+    std::fs::write(dir.join("seeded.toml"), text).unwrap();
+    let out = fieldcage(
+        &["init", "--db", "third.db", "seeded.toml", "--seed", "32"],
+        &dir,
+    );
+    assert_eq!(exit_code(&out), Some(2));
+    let err = String::from_utf8_lossy(&out.stderr);
+    assert!(err.contains("seed = 31") && err.contains("32"), "{err}");
+    assert!(!dir.join("third.db").exists());
+    let out = ok(&fieldcage(
+        &["init", "--db", "third.db", "seeded.toml"],
+        &dir,
+    ));
+    assert!(out.contains("randomisation seed 31"), "{out}");
+    assert!(
+        !out.contains("TABLET.db"),
+        "a seed from the file needs no line: {out}"
+    );
+}

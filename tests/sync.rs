@@ -1331,6 +1331,92 @@ fn tablets_set_up_with_different_seeds_are_told_so() {
     );
 }
 
+/// Issue 16: `init` of one definition on two tablets gave two sets of
+/// setup ids whenever the two copies of the file differed in anything at all
+/// (a comment, Windows line endings), and a second `init` without `--seed`
+/// drew another layout: 792 conflicts. Setup ids now come from the
+/// experiment's code and each row's natural key, and a definition may carry
+/// its seed, so two inits converge with no conflict; a field record made on
+/// one tablet then reaches the other.
+#[test]
+fn regression_16_two_inits_of_one_definition_converge_with_no_conflicts() {
+    let tmp = Temp::new();
+    let target = target(&tmp);
+    let shipped = fieldcage_core::demo::DEFINITION;
+    // The second tablet's copy: comments stripped, CRLF line endings, and
+    // the seed written into [experiment] instead of given on the command line.
+    let copy: String = shipped
+        .lines()
+        .filter(|l| !l.trim_start().starts_with('#'))
+        .map(|l| {
+            if l == "[experiment]" {
+                "[experiment]\r\nseed = 77\r\n".to_owned()
+            } else {
+                format!("{l}\r\n")
+            }
+        })
+        .collect();
+    let def_a = fieldcage_core::demo::definition().unwrap();
+    let def_b = fieldcage_core::setup::definition::parse(Path::new("copy.toml"), &copy).unwrap();
+    let (seed_b, source) = fieldcage_core::setup::choose_seed(&def_b, None).unwrap();
+    assert_eq!(
+        (seed_b, source),
+        (77, fieldcage_core::setup::SeedSource::Definition)
+    );
+    let mut a = tmp.store("a.db");
+    let mut b = tmp.store("b.db");
+    fieldcage_core::setup::init(&mut a, &def_a, 77).unwrap();
+    fieldcage_core::setup::init(&mut b, &def_b, seed_b).unwrap();
+    assert_eq!(data_snapshot(&a), data_snapshot(&b), "the same setup rows");
+
+    // A first field record on a, then sync both ways.
+    let cage = a.list::<Enclosure>().unwrap()[0].id;
+    let visit = Visit {
+        id: VisitId(uuid::Uuid::now_v7()),
+        enclosure_id: cage,
+        kind: VisitKind::Census,
+        day: Some(3),
+        visited_at: chrono::DateTime::parse_from_rfc3339("2026-05-14T09:00:00+02:00").unwrap(),
+        observer: Some("crew-A".into()),
+        device: None,
+        completed: true,
+        notes: None,
+    };
+    a.write(|w| w.insert(&visit)).unwrap();
+    sync::sync_once(&mut a, &target).unwrap();
+    let rb = sync::sync_once(&mut b, &target).unwrap();
+    let ra = sync::sync_once(&mut a, &target).unwrap();
+    for r in [&ra, &rb] {
+        assert_eq!(r.applied.len(), 1, "{r}");
+        assert!(r.skipped.is_empty(), "{r}");
+        assert_eq!(r.open_conflicts, 0, "{r}");
+        assert!(r.warnings.is_empty(), "{r}");
+    }
+    assert_eq!(data_snapshot(&a), data_snapshot(&b), "one season on both");
+    assert_eq!(crate::util::count(&b, "visit"), 1);
+    assert_eq!(crate::util::count(&b, "enclosure"), 24);
+}
+
+/// A seed given on the command line that differs from the definition's own
+/// is refused, naming both: the two would be two layouts.
+#[test]
+fn a_seed_given_against_the_definitions_seed_is_refused() {
+    let text =
+        fieldcage_core::demo::DEFINITION.replace("\n[experiment]\n", "\n[experiment]\nseed = 9\n");
+    let def = fieldcage_core::setup::definition::parse(Path::new("d.toml"), &text).unwrap();
+    let err = fieldcage_core::setup::choose_seed(&def, Some(10))
+        .unwrap_err()
+        .to_string();
+    assert!(
+        err.contains("seed") && err.contains("10") && err.contains("seed = 9"),
+        "{err}"
+    );
+    assert_eq!(
+        fieldcage_core::setup::choose_seed(&def, Some(9)).unwrap(),
+        (9, fieldcage_core::setup::SeedSource::Given)
+    );
+}
+
 /// Issue 16: a change-set of another experiment was merged instead of
 /// refused (its cages appeared in this experiment's blocks, 47 conflicts
 /// opened, and the export no longer imported). It is refused whole, naming

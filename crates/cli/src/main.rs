@@ -26,7 +26,8 @@ enum Command {
         db: PathBuf,
         /// The experiment definition (TOML; see demo_data/definition.toml).
         definition: PathBuf,
-        /// Randomisation seed (recorded); a random one is drawn and printed if left out.
+        /// Randomisation seed (recorded). Left out: the definition's
+        /// `[experiment] seed`, else a random one, drawn and printed.
         #[arg(long)]
         seed: Option<u64>,
     },
@@ -232,8 +233,8 @@ fn run(cli: Cli) -> anyhow::Result<ExitCode> {
             seed,
         } => {
             let def = setup::definition::read(&definition)?;
+            let (seed, source) = setup::choose_seed(&def, seed)?;
             let mut store = new_database(&db)?;
-            let seed = seed.unwrap_or_else(setup::fresh_seed);
             let result = setup::init(&mut store, &def, seed);
             if result.is_err() {
                 drop(store);
@@ -247,6 +248,15 @@ fn run(cli: Cli) -> anyhow::Result<ExitCode> {
                 summary.treatments,
                 summary.seed
             );
+            if source == setup::SeedSource::Drawn {
+                println!(
+                    "the seed was drawn now; to give other tablets this layout, add `seed = {seed}` \
+                     to [experiment] in {def_path}, or set them up with:\n  fieldcage init --db \
+                     TABLET.db {def_path} --seed {seed}\n(or let them join this tablet's sync \
+                     folder: fieldcage join --db TABLET.db --target FOLDER)",
+                    def_path = definition.display()
+                );
+            }
         }
         Command::Layout { db } => {
             let store = existing_database(&db)?;

@@ -118,7 +118,7 @@ impl Season {
         let damage_protocol = store::list::<DamageProtocol>(conn)?.into_iter().next();
         let cover_classes = classes_of(cover_protocol.as_ref().and_then(|p| p.scale_id));
         let damage_classes = classes_of(damage_protocol.as_ref().and_then(|p| p.scale_id));
-        let schedule = store::list::<ScheduleEntry>(conn)?;
+        let schedule = crate::season::planned_visits(conn)?;
 
         let mut visits: Vec<Vec<Visit>> = vec![Vec::new(); cages.len()];
         for v in read_visits(conn)? {

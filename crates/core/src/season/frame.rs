@@ -91,7 +91,7 @@ impl Frame {
             site_name,
             cages,
             plans,
-            schedule: store::list::<ScheduleEntry>(conn)?,
+            schedule: schedule(conn)?,
         }))
     }
 
@@ -127,4 +127,13 @@ impl Frame {
     pub fn plan(&self, treatment: TreatmentId, taxon: TaxonId) -> Option<&StockingPlan> {
         self.plans.get(&(treatment, taxon))
     }
+}
+
+/// The planned visits by kind, then day: the order of the definition's
+/// schedule, whatever the ids (a season imported or set up by an older
+/// version has ids of another order).
+pub(crate) fn schedule(conn: &rusqlite::Connection) -> Result<Vec<ScheduleEntry>> {
+    let mut schedule = store::list::<ScheduleEntry>(conn)?;
+    schedule.sort_by_key(|e| (e.kind, e.day));
+    Ok(schedule)
 }

@@ -24,6 +24,7 @@ pub mod stocking;
 mod write;
 
 pub use calendar::Calendar;
+pub(crate) use frame::schedule as planned_visits;
 pub use frame::{Frame, FrameCage};
 pub use schedule::{AsOf, PlanState, PlanStatus};
 pub use write::{EDITABLE, UndoAction, Undone, VisitFor, editable_table, undo, visit_for};

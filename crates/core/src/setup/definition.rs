@@ -43,9 +43,6 @@ pub struct Definition {
     pub damage: RawDamage,
     /// Planned visits: (kind, day, grace days), sorted.
     pub schedule: Vec<(VisitKind, i64, i64)>,
-    /// SHA-256 of the file's text (line endings as LF): two tablets set up
-    /// from the same file get the same setup rows.
-    pub text_sha256: [u8; 32],
 }
 
 /// `[experiment]`.
@@ -62,6 +59,10 @@ pub struct RawExperiment {
     pub end_date: Option<toml::value::Datetime>,
     /// Offset of local time from UTC, e.g. "+02:00".
     pub utc_offset: String,
+    /// Randomisation seed: every tablet set up from this file gets the same
+    /// layout without `--seed` (`fieldcage init` prints the seed it drew
+    /// for a file without one).
+    pub seed: Option<u64>,
     /// Notes.
     pub notes: Option<String>,
 }
@@ -678,14 +679,7 @@ pub fn parse(path: &Path, text: &str) -> Result<Definition> {
         cover,
         damage,
         schedule,
-        text_sha256: text_sha256(text),
     })
-}
-
-/// SHA-256 of a definition's text with CRLF line endings read as LF.
-fn text_sha256(text: &str) -> [u8; 32] {
-    use sha2::{Digest, Sha256};
-    Sha256::digest(text.replace("\r\n", "\n").as_bytes()).into()
 }
 
 impl Definition {

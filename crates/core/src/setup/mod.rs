@@ -9,7 +9,7 @@ use std::collections::HashMap;
 pub use definition::Definition;
 
 use crate::model::*;
-use crate::store::{IdMaker, Store, Writer};
+use crate::store::{Store, Writer};
 use crate::{Error, Result};
 
 /// What `init` created.
@@ -31,41 +31,50 @@ pub fn fresh_seed() -> u64 {
     u64::from_le_bytes(tail) & (i64::MAX as u64)
 }
 
+/// Where the randomisation seed of a set-up came from.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum SeedSource {
+    /// Given on the command line (or by the caller).
+    Given,
+    /// The definition's `[experiment] seed`.
+    Definition,
+    /// Drawn now: the other tablets need it to set up the same layout.
+    Drawn,
+}
+
+/// The seed to set `def` up with: the one `given`, else the definition's,
+/// else a fresh one. A seed given that differs from the definition's is
+/// refused, naming both (two tablets would hold two layouts).
+pub fn choose_seed(def: &Definition, given: Option<u64>) -> Result<(u64, SeedSource)> {
+    match (given, def.experiment.seed) {
+        (Some(g), Some(d)) if g != d => Err(Error::invalid(
+            "init",
+            "seed",
+            g,
+            format!(
+                "the definition {} sets seed = {d} in [experiment]; leave --seed out or give \
+                 the same seed",
+                def.path.display()
+            ),
+        )),
+        (Some(g), _) => Ok((g, SeedSource::Given)),
+        (None, Some(d)) => Ok((d, SeedSource::Definition)),
+        (None, None) => Ok((fresh_seed(), SeedSource::Drawn)),
+    }
+}
+
 /// Create the experiment of `def` in an empty database and randomise the
 /// treatments (seeded). Refused if the database already holds an experiment.
 ///
-/// The ids of the rows made here come from the definition's text and the
-/// seed, not from the clock: every tablet initialised from the same file
-/// with the same seed holds the very same setup rows, so the tablets can
-/// sync with one another (their setup entries agree, field by field).
+/// Every row made here has an id derived from the experiment's code, the
+/// row's natural key and its place in the definition ([`SetupIds`]), not
+/// from the clock: tablets set up from
+/// the same definition (even a copy with other comments or line endings)
+/// hold the very same setup rows and sync with no conflict. The seed is
+/// recorded in the experiment row and in every assignment; change-sets carry
+/// it, so a tablet holding another randomisation is refused by name.
 pub fn init(store: &mut Store, def: &Definition, seed: u64) -> Result<InitSummary> {
-    let ids = setup_ids(def, seed);
-    let previous = store.swap_ids(ids);
-    let result = init_rows(store, def, seed);
-    store.swap_ids(previous);
-    result
-}
-
-/// The id maker of a setup: seeded from the definition text and the seed;
-/// timestamps count up from the day before the experiment starts (so setup
-/// rows sort before every field record).
-fn setup_ids(def: &Definition, seed: u64) -> IdMaker {
-    use sha2::{Digest, Sha256};
-    let mut h = Sha256::new();
-    h.update(b"fieldcage setup ids\n");
-    h.update(def.text_sha256);
-    h.update(seed.to_le_bytes());
-    let start = def
-        .start_date()
-        .and_hms_opt(0, 0, 0)
-        .unwrap_or_default()
-        .and_utc()
-        .timestamp_millis()
-        - 86_400_000;
-    IdMaker::seeded(h.finalize().into(), start.max(0) as u64)
-}
-
-fn init_rows(store: &mut Store, def: &Definition, seed: u64) -> Result<InitSummary> {
+    let mut ids = SetupIds::of(def);
     let seed_i64 = i64::try_from(seed).map_err(|_| {
         Error::invalid(
             "init",
@@ -97,7 +106,7 @@ fn init_rows(store: &mut Store, def: &Definition, seed: u64) -> Result<InitSumma
             ));
         }
         let experiment = Experiment {
-            id: ExperimentId(w.new_id()),
+            id: ExperimentId(ids.next("experiment", &[])),
             code: def.experiment.code.clone(),
             title: def.experiment.title.clone(),
             start_date: def.start_date(),
@@ -113,7 +122,7 @@ fn init_rows(store: &mut Store, def: &Definition, seed: u64) -> Result<InitSumma
         let mut sites = HashMap::new();
         for s in &def.sites {
             let site = Site {
-                id: SiteId(w.new_id()),
+                id: SiteId(ids.next("site", &[&s.code])),
                 experiment_id: eid,
                 code: s.code.clone(),
                 name: s.name.clone(),
@@ -128,7 +137,7 @@ fn init_rows(store: &mut Store, def: &Definition, seed: u64) -> Result<InitSumma
         let mut treatments = Vec::new();
         for t in &def.treatments {
             let treatment = Treatment {
-                id: TreatmentId(w.new_id()),
+                id: TreatmentId(ids.next("treatment", &[&t.code])),
                 experiment_id: eid,
                 code: t.code.clone(),
                 name: t.name.clone(),
@@ -143,7 +152,7 @@ fn init_rows(store: &mut Store, def: &Definition, seed: u64) -> Result<InitSumma
         let mut taxa = HashMap::new();
         for t in &def.taxa {
             let taxon = Taxon {
-                id: TaxonId(w.new_id()),
+                id: TaxonId(ids.next("taxon", &[&t.code])),
                 experiment_id: eid,
                 code: t.code.clone(),
                 scientific_name: t.scientific_name.clone(),
@@ -158,7 +167,7 @@ fn init_rows(store: &mut Store, def: &Definition, seed: u64) -> Result<InitSumma
 
         for (t, tid) in def.treatments.iter().zip(&treatments) {
             for s in &t.stock {
-                let id = StockingPlanId(w.new_id());
+                let id = StockingPlanId(ids.next("stocking_plan", &[&t.code, &s.taxon]));
                 w.insert(&StockingPlan {
                     id,
                     treatment_id: *tid,
@@ -174,7 +183,7 @@ fn init_rows(store: &mut Store, def: &Definition, seed: u64) -> Result<InitSumma
         let first_site = sites[def.sites[0].code.as_str()];
         for (b, order) in def.blocks.iter().zip(&layout) {
             let block = Block {
-                id: BlockId(w.new_id()),
+                id: BlockId(ids.next("block", &[&b.code])),
                 site_id: b.site.as_deref().map_or(first_site, |c| sites[c]),
                 code: b.code.clone(),
                 notes: b.notes.clone(),
@@ -184,7 +193,7 @@ fn init_rows(store: &mut Store, def: &Definition, seed: u64) -> Result<InitSumma
                 let over = def.enclosures.get(label);
                 let d = &def.enclosure_defaults;
                 let enclosure = Enclosure {
-                    id: EnclosureId(w.new_id()),
+                    id: EnclosureId(ids.next("enclosure", &[label])),
                     block_id: block.id,
                     label: label.clone(),
                     area_m2: over
@@ -198,7 +207,7 @@ fn init_rows(store: &mut Store, def: &Definition, seed: u64) -> Result<InitSumma
                     notes: over.and_then(|e| e.notes.clone()),
                 };
                 w.insert(&enclosure)?;
-                let id = AssignmentId(w.new_id());
+                let id = AssignmentId(ids.next("assignment", &[label]));
                 w.insert(&Assignment {
                     id,
                     enclosure_id: enclosure.id,
@@ -209,10 +218,10 @@ fn init_rows(store: &mut Store, def: &Definition, seed: u64) -> Result<InitSumma
             }
         }
 
-        let scales = insert_scales(w, def)?;
+        let scales = insert_scales(w, &mut ids, def)?;
         let cover = &def.cover;
         let protocol = CoverProtocol {
-            id: CoverProtocolId(w.new_id()),
+            id: CoverProtocolId(ids.next("cover_protocol", &[&cover.code])),
             experiment_id: eid,
             code: cover.code.clone(),
             method: cover.method,
@@ -227,7 +236,7 @@ fn init_rows(store: &mut Store, def: &Definition, seed: u64) -> Result<InitSumma
         };
         w.insert(&protocol)?;
         for g in &cover.ground {
-            let id = GroundCategoryId(w.new_id());
+            let id = GroundCategoryId(ids.next("ground_category", &[&cover.code, &g.code]));
             w.insert(&GroundCategory {
                 id,
                 protocol_id: protocol.id,
@@ -236,7 +245,7 @@ fn init_rows(store: &mut Store, def: &Definition, seed: u64) -> Result<InitSumma
             })?;
         }
         let damage = &def.damage;
-        let id = DamageProtocolId(w.new_id());
+        let id = DamageProtocolId(ids.next("damage_protocol", &[&damage.code]));
         w.insert(&DamageProtocol {
             id,
             experiment_id: eid,
@@ -247,7 +256,8 @@ fn init_rows(store: &mut Store, def: &Definition, seed: u64) -> Result<InitSumma
             notes: damage.notes.clone(),
         })?;
         for &(kind, day, grace_days) in &def.schedule {
-            let id = ScheduleEntryId(w.new_id());
+            let id =
+                ScheduleEntryId(ids.next("schedule_entry", &[kind.as_str(), &day.to_string()]));
             w.insert(&ScheduleEntry {
                 id,
                 experiment_id: eid,
@@ -265,11 +275,65 @@ fn init_rows(store: &mut Store, def: &Definition, seed: u64) -> Result<InitSumma
     })
 }
 
-fn insert_scales<'d>(w: &mut Writer<'_>, def: &'d Definition) -> Result<HashMap<&'d str, ScaleId>> {
+/// Ids of setup rows, as UUIDv7s. The random bits are the SHA-256 of the
+/// experiment's code, the table and the row's natural key; the time is the
+/// day before the experiment starts plus the row's place among the rows of
+/// its table in the definition, so setup sorts before every field record and
+/// listings in id order keep the definition's order (the crew's species
+/// order on the sheet). Nothing else of the file enters: comments, blank
+/// lines, line endings, the order of keys inside an entry or the seed's
+/// place change no id.
+#[derive(Debug, Clone)]
+pub struct SetupIds {
+    experiment: String,
+    millis: u64,
+    places: HashMap<&'static str, u64>,
+}
+
+impl SetupIds {
+    /// The ids of `def`'s setup.
+    pub fn of(def: &Definition) -> SetupIds {
+        let start = def
+            .start_date()
+            .and_hms_opt(0, 0, 0)
+            .unwrap_or_default()
+            .and_utc()
+            .timestamp_millis()
+            - 86_400_000;
+        SetupIds {
+            experiment: def.experiment.code.clone(),
+            millis: start.max(0) as u64,
+            places: HashMap::new(),
+        }
+    }
+
+    /// The id of the next row of `table`, whose natural key is `key`.
+    pub fn next(&mut self, table: &'static str, key: &[&str]) -> uuid::Uuid {
+        use sha2::{Digest, Sha256};
+        let place = self.places.entry(table).or_default();
+        *place += 1;
+        let mut h = Sha256::new();
+        h.update(b"fieldcage setup id\n");
+        for part in [self.experiment.as_str(), table].iter().chain(key) {
+            h.update(part.len().to_le_bytes());
+            h.update(part.as_bytes());
+        }
+        let digest = h.finalize();
+        let mut random = [0u8; 10];
+        random.copy_from_slice(&digest[..10]);
+        uuid::Builder::from_unix_timestamp_millis(self.millis + *place, &random).into_uuid()
+    }
+}
+
+fn insert_scales<'d>(
+    w: &mut Writer<'_>,
+    setup: &mut SetupIds,
+    def: &'d Definition,
+) -> Result<HashMap<&'d str, ScaleId>> {
     let mut ids = HashMap::new();
     for s in &def.scales {
         let scale = Scale {
-            id: ScaleId(w.new_id()),
+            id: ScaleId(setup.next("scale", &[&s.code])),
             code: s.code.clone(),
             name: s.name.clone(),
             kind: s.kind,
@@ -277,7 +341,7 @@ fn insert_scales<'d>(w: &mut Writer<'_>, def: &'d Definition) -> Result<HashMap<
         };
         w.insert(&scale)?;
         for (i, c) in s.classes.iter().enumerate() {
-            let id = ScaleClassId(w.new_id());
+            let id = ScaleClassId(setup.next("scale_class", &[&s.code, &c.code]));
             w.insert(&ScaleClass {
                 id,
                 scale_id: scale.id,

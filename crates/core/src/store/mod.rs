@@ -277,11 +277,6 @@ impl Store {
         };
     }
 
-    /// Replace the id maker, returning the one in use.
-    pub(crate) fn swap_ids(&mut self, ids: IdMaker) -> IdMaker {
-        std::mem::replace(&mut self.ids, ids)
-    }
-
     /// Run `f` in one IMMEDIATE transaction. Every change made through the
     /// [`Writer`] is logged; if `f` or the commit fails nothing is written.
     pub fn write<T>(&mut self, f: impl FnOnce(&mut Writer<'_>) -> Result<T>) -> Result<T> {
@@ -557,15 +552,6 @@ fn ensure_device(conn: &mut Connection, clock: &Clock) -> Result<String> {
 }
 
 impl IdMaker {
-    /// Deterministic ids from a 32-byte seed, with timestamps counting up
-    /// from `start_millis`.
-    pub(crate) fn seeded(seed: [u8; 32], start_millis: u64) -> IdMaker {
-        IdMaker::Seeded {
-            rng: Box::new(ChaCha8Rng::from_seed(seed)),
-            millis: start_millis,
-        }
-    }
-
     fn next(&mut self) -> Uuid {
         match self {
             IdMaker::Clock => Uuid::now_v7(),

@@ -165,7 +165,7 @@ fn apply_within(
         let mine = crate::store::first::<crate::model::Experiment>(tx)?
             .map(|e| (e.id.to_string(), e.code, e.randomisation_seed));
         if let Some((id, code, seed)) = mine
-            && id != theirs.id
+            && (id != theirs.id || (seed.is_some() && theirs.seed.is_some() && seed != theirs.seed))
         {
             let seed_text =
                 |s: Option<i64>| s.map_or("an unknown seed".to_owned(), |s| format!("seed {s}"));

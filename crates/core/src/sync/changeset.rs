@@ -105,9 +105,9 @@ pub struct ChangeSet {
 }
 
 /// Which experiment a change-set belongs to, as its header says it: the
-/// experiment row's id (made from the definition and the randomisation
-/// seed), its code and its seed. A receiver that holds another experiment
-/// refuses the file.
+/// experiment row's id (made from the experiment's code), its code and its
+/// randomisation seed. A receiver that holds another experiment, or this
+/// experiment randomised with another seed, refuses the file.
 #[derive(Debug, Clone, PartialEq, Eq)]
 pub struct Experiment {
     /// The experiment row's id.
