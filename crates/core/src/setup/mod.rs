@@ -68,9 +68,9 @@ pub fn choose_seed(def: &Definition, given: Option<u64>) -> Result<(u64, SeedSou
 ///
 /// Every row made here has an id derived from the experiment's code, the
 /// row's natural key and its place in the definition ([`SetupIds`]), not
-/// from the clock: tablets set up from
-/// the same definition (even a copy with other comments or line endings)
-/// hold the very same setup rows and sync with no conflict. The seed is
+/// from the clock: tablets set up from the same definition (even a copy with
+/// other comments or line endings) hold the very same setup rows and sync
+/// with no conflict. The seed is
 /// recorded in the experiment row and in every assignment; change-sets carry
 /// it, so a tablet holding another randomisation is refused by name.
 pub fn init(store: &mut Store, def: &Definition, seed: u64) -> Result<InitSummary> {
