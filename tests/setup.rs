@@ -264,3 +264,24 @@ code = "visual-1layer""#;
     let protocol = &store.list::<CoverProtocol>().unwrap()[0];
     assert_eq!(protocol.scale_id, Some(scale.id));
 }
+
+/// A seed given on the command line that differs from the definition's own
+/// is refused, naming both: the two would be two layouts.
+#[test]
+fn a_seed_given_against_the_definitions_seed_is_refused() {
+    let text =
+        fieldcage_core::demo::DEFINITION.replace("\n[experiment]\n", "\n[experiment]\nseed = 9\n");
+    let def =
+        fieldcage_core::setup::definition::parse(std::path::Path::new("d.toml"), &text).unwrap();
+    let err = fieldcage_core::setup::choose_seed(&def, Some(10))
+        .unwrap_err()
+        .to_string();
+    assert!(
+        err.contains("seed") && err.contains("10") && err.contains("seed = 9"),
+        "{err}"
+    );
+    assert_eq!(
+        fieldcage_core::setup::choose_seed(&def, Some(9)).unwrap(),
+        (9, fieldcage_core::setup::SeedSource::Given)
+    );
+}

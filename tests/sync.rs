@@ -1335,7 +1335,8 @@ fn tablets_set_up_with_different_seeds_are_told_so() {
 /// setup ids whenever the two copies of the file differed in anything at all
 /// (a comment, Windows line endings), and a second `init` without `--seed`
 /// drew another layout: 792 conflicts. Setup ids now come from the
-/// experiment's code and each row's natural key, and a definition may carry
+/// experiment's code, each row's natural key and its place in the file
+/// (comments and line endings do not count), and a definition may carry
 /// its seed, so two inits converge with no conflict; a field record made on
 /// one tablet then reaches the other.
 #[test]
@@ -1395,26 +1396,6 @@ fn regression_16_two_inits_of_one_definition_converge_with_no_conflicts() {
     assert_eq!(data_snapshot(&a), data_snapshot(&b), "one season on both");
     assert_eq!(crate::util::count(&b, "visit"), 1);
     assert_eq!(crate::util::count(&b, "enclosure"), 24);
-}
-
-/// A seed given on the command line that differs from the definition's own
-/// is refused, naming both: the two would be two layouts.
-#[test]
-fn a_seed_given_against_the_definitions_seed_is_refused() {
-    let text =
-        fieldcage_core::demo::DEFINITION.replace("\n[experiment]\n", "\n[experiment]\nseed = 9\n");
-    let def = fieldcage_core::setup::definition::parse(Path::new("d.toml"), &text).unwrap();
-    let err = fieldcage_core::setup::choose_seed(&def, Some(10))
-        .unwrap_err()
-        .to_string();
-    assert!(
-        err.contains("seed") && err.contains("10") && err.contains("seed = 9"),
-        "{err}"
-    );
-    assert_eq!(
-        fieldcage_core::setup::choose_seed(&def, Some(9)).unwrap(),
-        (9, fieldcage_core::setup::SeedSource::Given)
-    );
 }
 
 /// Issue 16: a change-set of another experiment was merged instead of

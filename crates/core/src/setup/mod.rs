@@ -24,7 +24,7 @@ pub struct InitSummary {
 }
 
 /// A seed for when the user gives none: random, then recorded like any other.
-pub fn fresh_seed() -> u64 {
+fn fresh_seed() -> u64 {
     let bytes = uuid::Uuid::now_v7().into_bytes();
     let mut tail = [0u8; 8];
     tail.copy_from_slice(&bytes[8..]);
